@@ -1,0 +1,94 @@
+"""Arrays over the domain of a partial function, in its canonical order.
+
+:func:`domain` is the only place that turns a :class:`~advbound.function.PartialFunction`
+into arrays; every matrix of every later module is indexed through it.  Row ``i``
+of every array is ``f.inputs[i]`` (inputs sorted by alphabet index, see
+:mod:`advbound.function`).
+
+>>> from advbound.function import PartialFunction
+>>> f = PartialFunction.from_pairs("01", [("00", 0), ("01", 1), ("10", 1), ("11", 1)])
+>>> d = domain(f)
+>>> d.symbols.tolist()
+[[0, 0], [0, 1], [1, 0], [1, 1]]
+>>> d.delta(0).astype(int).tolist()
+[[0, 0, 1, 1], [0, 0, 1, 1], [1, 1, 0, 0], [1, 1, 0, 0]]
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from .function import PartialFunction
+
+__all__ = ["Domain", "domain"]
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Domain:
+    """Ordered arrays describing a function's domain.
+
+    Attributes
+    ----------
+    function : PartialFunction
+        The function these arrays describe.
+    symbols : ndarray of int8, shape (|D|, N)
+        ``symbols[i, j]`` is the alphabet index of ``inputs[i][j]``.
+    output_index : ndarray of int, shape (|D|,)
+        ``output_index[i]`` indexes ``function.labels``.
+    costs : ndarray of float, shape (N,)
+        Query costs of the positions.
+    """
+
+    function: PartialFunction
+    symbols: np.ndarray
+    output_index: np.ndarray
+    costs: np.ndarray
+
+    @property
+    def size(self) -> int:
+        """``|D|``."""
+        return self.symbols.shape[0]
+
+    @property
+    def n(self) -> int:
+        """Number of positions ``N``."""
+        return self.symbols.shape[1]
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        return self.function.labels
+
+    def part(self, label_index: int) -> np.ndarray:
+        """Indices (into the canonical order) of the inputs with output ``labels[label_index]``."""
+        return np.flatnonzero(self.output_index == label_index)
+
+    def delta(self, j: int) -> np.ndarray:
+        """Boolean ``|D| x |D|`` matrix, True where inputs differ at position ``j``."""
+        col = self.symbols[:, j]
+        return col[:, None] != col[None, :]
+
+    def same_output(self) -> np.ndarray:
+        """Boolean ``|D| x |D|`` matrix ``F``: True where outputs are equal."""
+        o = self.output_index
+        return o[:, None] == o[None, :]
+
+    def live_positions(self) -> np.ndarray:
+        """Indices of positions where at least two inputs differ (the others never help a query)."""
+        s = self.symbols
+        return np.flatnonzero((s != s[:1]).any(axis=0))
+
+
+def domain(f: PartialFunction) -> Domain:
+    """Arrays of ``f`` in canonical order (rows are ``f.inputs``)."""
+    order = {s: i for i, s in enumerate(f.alphabet)}
+    sym = np.array([[order[c] for c in x] for x in f.inputs], dtype=np.int8).reshape(f.size, f.n)
+    labels = f.labels
+    li = {lab: i for i, lab in enumerate(labels)}
+    out = np.array([li[y] for y in f.outputs], dtype=np.int64)
+    sym.setflags(write=False)
+    out.setflags(write=False)
+    costs = np.array(f.costs, dtype=float)
+    costs.setflags(write=False)
+    return Domain(f, sym, out, costs)

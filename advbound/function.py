@@ -138,16 +138,20 @@ class PartialFunction:
         if not seen:
             raise InvalidFunctionError("the domain is empty: no input is defined")
         order = {s: i for i, s in enumerate(alphabet)}
+        drop_known = str.maketrans({s: None for s in alphabet})
+        to_index = str.maketrans({s: chr(i) for i, s in enumerate(alphabet)})
         n = len(next(iter(seen)))
         for x in seen:
             if len(x) != n:
                 raise InvalidFunctionError(f"input {x!r} has length {len(x)}, expected {n} like the first input")
-            for j, ch in enumerate(x):
-                if ch not in order:
-                    raise InvalidFunctionError(
-                        f"input {x!r} has symbol {ch!r} at position {j + 1}, not in alphabet {''.join(alphabet)!r}"
-                    )
-        keys = sorted(seen, key=lambda s: [order[c] for c in s])
+            if x.translate(drop_known):  # some symbol is not in the alphabet: find the first one
+                for j, ch in enumerate(x):
+                    if ch not in order:
+                        raise InvalidFunctionError(
+                            f"input {x!r} has symbol {ch!r} at position {j + 1}, not in alphabet {''.join(alphabet)!r}"
+                        )
+        # translated strings compare like lists of alphabet indices (the canonical order)
+        keys = sorted(seen, key=lambda s: s.translate(to_index))
         if costs is None:
             costs = (1.0,) * n
         return cls(alphabet, tuple(keys), tuple(seen[k] for k in keys), tuple(float(c) for c in costs), **fields)
@@ -228,14 +232,21 @@ def _check(f: PartialFunction) -> None:
         raise InvalidFunctionError(f"{len(f.inputs)} inputs but {len(f.outputs)} outputs")
     n = len(f.costs)
     order = {s: i for i, s in enumerate(f.alphabet)}
+    # Translating each symbol to the code point of its alphabet index makes plain string
+    # comparison the canonical comparison; both translations run in C (10^5 long inputs in
+    # well under a second, where a per-character Python loop took seconds).
+    to_index = str.maketrans({s: chr(i) for i, s in enumerate(f.alphabet)})
+    drop_known = str.maketrans({s: None for s in f.alphabet})
     prev = None
     for x in f.inputs:
+        if type(x) is not str:
+            raise InvalidFunctionError(f"input {x!r} is not a string")
         if len(x) != n:
             raise InvalidFunctionError(f"input {x!r} has length {len(x)}, expected {n} (one per cost)")
-        key = [order.get(c, -1) for c in x]
-        if -1 in key:
+        if x.translate(drop_known):
             bad = next(c for c in x if c not in order)
             raise InvalidFunctionError(f"input {x!r} has symbol {bad!r}, not in alphabet {''.join(f.alphabet)!r}")
+        key = x.translate(to_index)
         if prev is not None and key <= prev:
             raise InvalidFunctionError(f"inputs are not in canonical order (or repeat) at {x!r}; use from_pairs")
         prev = key

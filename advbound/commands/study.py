@@ -1,0 +1,135 @@
+"""``advbound study [FILE]``: run a study (a parameter sweep) into its result store, then write its report.
+
+Typical use::
+
+    advbound study                                   # instances/studies/default.toml of this checkout
+    advbound study instances/studies/default.toml --jobs 2
+    advbound study my.toml --scheduler tcp://127.0.0.1:8786 --retry-failed --quiet
+"""
+
+from __future__ import annotations
+
+import sys
+
+__all__ = ["register", "run", "TqdmProgress"]
+
+
+def register(subparsers) -> None:
+    """Add the ``study`` parser to ``subparsers``."""
+    p = subparsers.add_parser(
+        "study", help="sweep a study's parameter grid into a durable store, then report",
+        description="Solve every point of a study file (instance template + [grid] + [study]) that is not "
+                    "yet in its result store, one committed row per point, then write the report. "
+                    "Without FILE, runs instances/studies/default.toml of the checkout advbound was "
+                    "imported from.")
+    p.add_argument("file", metavar="FILE", nargs="?", default=None, help="study TOML file")
+    p.add_argument("--store", metavar="PATH", default=None,
+                   help="result store (default: [study] store, else studies/<name>.sqlite)")
+    p.add_argument("--certificates", metavar="DIR", default=None,
+                   help="certificate directory (default: the store path without .sqlite plus -certificates)")
+    p.add_argument("--jobs", type=int, default=1, metavar="N", help="local worker processes (default 1)")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="submit the points to this dask.distributed scheduler instead")
+    p.add_argument("--retry-failed", action="store_true", help="also recompute points stored as failed")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-report", action="store_true", help="do not write the report afterwards")
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="report directory (default: [study] report, else reports/<name>)")
+    p.set_defaults(run=run)
+
+
+class TqdmProgress:
+    """Progress bar on stderr naming the point being solved (see :class:`advbound.study.Progress`)."""
+
+    def __init__(self, name: str):
+        self.name = name
+        self.bar = None
+        self.running: list = []
+        self.failed = 0
+
+    def start(self, total, skipped):
+        from tqdm import tqdm
+        if skipped:
+            sys.stderr.write(f"{self.name}: {skipped} point(s) already stored, skipped\n")
+        if total:
+            self.bar = tqdm(total=total, desc=self.name, unit="pt", file=sys.stderr, dynamic_ncols=True,
+                            bar_format="{desc}: {n_fmt}/{total_fmt} [{elapsed}<{remaining}]{postfix}")
+
+    def _show(self):
+        if self.bar is None:
+            return
+        if not self.running:
+            self.bar.set_postfix_str("")
+            return
+        more = f" (+{len(self.running) - 1} queued/running)" if len(self.running) > 1 else ""
+        fail = f", {self.failed} failed" if self.failed else ""
+        self.bar.set_postfix_str(f"solving {self.running[0].label}{more}{fail}")
+
+    def begin(self, point):
+        self.running.append(point)
+        self._show()
+
+    def done(self, point, row):
+        if point in self.running:
+            self.running.remove(point)
+        if row.failed:
+            self.failed += 1
+        if self.bar is not None:
+            self.bar.update(1)
+        self._show()
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+
+
+def _print_preferences(files) -> None:
+    import json
+    fits = json.loads(open(files.data[-1]).read())
+    names = {"sqrt": "prefers sqrt(T)", "sqrt_log": "prefers sqrt(T log T)", "neither": "neither law fits",
+             "indistinguishable": "cannot tell sqrt(T) from sqrt(T log T)"}
+    for label, d in fits.items():
+        if isinstance(d, str):
+            print(f"  fit {label}: {d}")
+        else:
+            print(f"  fit {label}: {names.get(d['preference'], d['preference'])} (best by {d['criterion']}: "
+                  f"{d['ranking'][0]})")
+
+
+def run(args) -> int:
+    """Handler of ``advbound study``; returns the exit code."""
+    from advbound.errors import AdvboundError
+    from advbound.store import Store
+    from advbound.study import default_study_path, load_study, plan, run_study
+
+    if args.jobs < 1:
+        raise AdvboundError(f"--jobs must be at least 1, got {args.jobs}")
+    path = args.file or default_study_path()
+    study = load_study(path, store=args.store, certificates=args.certificates, report=args.out)
+    progress = None if args.quiet else TqdmProgress(study.name)
+    try:
+        summary = run_study(study, jobs=args.jobs, scheduler=args.scheduler, retry_failed=args.retry_failed,
+                            progress=progress)
+    finally:
+        if progress is not None:
+            progress.close()
+    with Store(study.store, readonly=True) as st:
+        failed_keys = st.failed_keys()
+    kept = [p for p in plan(study) if p.run_key in failed_keys]
+    print(f"study {study.name}: {summary.planned} point(s); {summary.skipped} already stored, "
+          f"{summary.solved} solved now, {summary.failed} failed now; store {study.store}")
+    for row in summary.rows:
+        if row.failed:
+            print(f"  failed: {row.params} {row.bound}: {row.status}: {row.error or row.message}")
+    if kept and not args.retry_failed:
+        print(f"  {len(kept)} point(s) are stored as failed; rerun with --retry-failed to recompute them")
+    if not args.no_report:
+        from advbound.report import write_report
+        try:
+            files = write_report(study.store, out=study.report)
+        except AdvboundError as err:
+            print(f"no report: {err}")
+        else:
+            print(f"report: {files.summary}")
+            _print_preferences(files)
+    return 1 if kept else 0

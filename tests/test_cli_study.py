@@ -1,0 +1,168 @@
+"""End-to-end tests of `advbound study`, `advbound report` and `advbound fit` on tiny real instances."""
+
+import json
+import math
+import os
+import sqlite3
+import textwrap
+
+import pytest
+
+pytest.importorskip("advbound.instance")
+pytest.importorskip("advbound.solve")
+
+from advbound.cli import main  # noqa: E402
+from advbound.store import Store  # noqa: E402
+
+OR_N = textwrap.dedent("""
+    # OR_n written as OR of n position-search rows of length 1 (each row is one bit)
+    [instance]
+    name = "or-n"
+    outer = "or"
+    rows = "n"
+    inner = "position_search"
+    row_length = 1
+
+    [grid]
+    n = [2, 3, 4, 5]
+
+    [study]
+    growth = "n"
+    solver = "CLARABEL"
+    bounds = ["general"]
+    bootstrap = 20
+    """)
+
+
+@pytest.fixture
+def study_file(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    p = tmp_path / "or_n.toml"
+    p.write_text(OR_N)
+    return p
+
+
+def test_study_report_fit_end_to_end(study_file, tmp_path, capsys):
+    """ADV±(OR_n) = sqrt(n) (common knowledge) for n = 2..5; rerun skips; report and fit read the store."""
+    assert main(["study", str(study_file), "--quiet", "--no-report"]) == 0
+    out = capsys.readouterr().out
+    assert "4 solved now" in out and "store studies/or-n.sqlite" in out
+    with Store("studies/or-n.sqlite", readonly=True) as st:
+        rows = st.rows()
+    assert sorted((r.params["n"], round(r.lower, 5)) for r in rows) == [
+        (n, round(math.sqrt(n), 5)) for n in (2, 3, 4, 5)]
+    assert all(os.path.exists(r.certificate) for r in rows)
+    assert main(["study", str(study_file), "--quiet", "--no-report"]) == 0
+    assert "4 already stored, 0 solved now" in capsys.readouterr().out
+    assert main(["report", str(study_file)]) == 0
+    summary = (tmp_path / "reports" / "or-n" / "summary.md").read_text()
+    assert "| 4 | 16 | 2.000000 |" in summary  # n = 4: 2^4 inputs, ADV±(OR_4) = 2
+    capsys.readouterr()
+    assert main(["fit", str(study_file), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    sqrt_fit = next(f for f in d["general"]["fits"] if f["model"] == "sqrt")
+    assert sqrt_fit["params"]["c"] == pytest.approx(1.0, abs=1e-5)  # sqrt(n) = 1 * sqrt(n)
+
+
+def test_failed_point_exit_code_and_retry(study_file, tmp_path, capsys):
+    """A point whose solve fails is stored as failed (exit 1) and recomputed only with --retry-failed."""
+    assert main(["study", str(study_file), "--quiet", "--no-report"]) == 0
+    con = sqlite3.connect("studies/or-n.sqlite")
+    with con:  # make one stored point look failed, as if its solve had raised
+        con.execute("UPDATE results SET status='failed', error='SolverError: synthetic', lower=NULL "
+                    "WHERE params_json='{\"n\":3}'")
+    con.close()
+    capsys.readouterr()
+    assert main(["study", str(study_file), "--quiet", "--no-report"]) == 1
+    assert "--retry-failed" in capsys.readouterr().out
+    assert main(["study", str(study_file), "--quiet", "--no-report", "--retry-failed"]) == 0
+    assert "1 solved now" in capsys.readouterr().out
+    with Store("studies/or-n.sqlite", readonly=True) as st:
+        assert st.count() == 4 and not st.failed_keys()
+
+
+def test_bad_study_key_is_usage_error(tmp_path, monkeypatch, capsys):
+    """An unknown [study] key gives exit 2 and a one-line message naming file and key."""
+    monkeypatch.chdir(tmp_path)
+    p = tmp_path / "bad.toml"
+    p.write_text(OR_N + 'colour = "red"\n')
+    assert main(["study", str(p), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "bad.toml: [study] unknown key 'colour'" in err and err.count("\n") == 1
+
+
+def test_default_study_is_found():
+    """`advbound study` without FILE uses instances/studies/default.toml of this checkout, which loads."""
+    from advbound.study import default_study_path, load_study, plan
+    path = default_study_path()
+    assert path.name == "default.toml" and path.parent.name == "studies"
+    st = load_study(path)
+    assert st.name == "default" and st.series == "rows" and st.growth == "T"
+    assert len(plan(st)) == len(st.bounds) * 10
+
+
+def test_report_of_missing_store(tmp_path, monkeypatch, capsys):
+    """`advbound report` on a missing store is a usage error (exit 2)."""
+    monkeypatch.chdir(tmp_path)
+    assert main(["report", "nothing.sqlite"]) == 2
+    assert "no such result store" in capsys.readouterr().err
+
+
+SEARCH2 = textwrap.dedent("""
+    [instance]
+    name = "or2-search"
+    outer = "or"
+    rows = 2
+    inner = "position_search"
+    row_length = "T - 1"
+    time = "sqrt"
+    budget = { sum_squares = "T" }
+
+    [grid]
+    T = { from = 3, to = 14 }
+
+    [study]
+    solver = "CLARABEL"
+    """)
+
+
+@pytest.mark.slow
+def test_sigkill_real_study_then_resume(tmp_path):
+    """kill -9 of a real `advbound study` run keeps only complete, re-verifiable rows; a rerun completes it."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from advbound.certificate import load_certificate
+    from advbound.verify import verify_certificate
+
+    p = tmp_path / "s.toml"
+    p.write_text(SEARCH2)
+    cmd = [sys.executable, "-m", "advbound", "study", str(p), "--quiet", "--no-report"]
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    proc = subprocess.Popen(cmd, cwd=tmp_path, env=env, stdout=subprocess.DEVNULL)
+    store = tmp_path / "studies" / "or2-search.sqlite"
+    n, deadline = 0, time.time() + 120
+    while n < 3 and time.time() < deadline and proc.poll() is None:
+        time.sleep(0.2)
+        if store.exists():
+            try:
+                with Store(store, readonly=True) as st:
+                    n = st.count()
+            except Exception:
+                n = 0
+    assert proc.poll() is None, "the study finished before it could be killed"
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait(10)
+    with Store(store) as st:
+        killed = st.rows()
+    assert 3 <= len(killed) < 12
+    for r in killed:
+        rep = verify_certificate(load_certificate(r.certificate), bound="general")
+        assert rep.lower == pytest.approx(r.lower, rel=1e-9)
+    assert subprocess.run(cmd, cwd=tmp_path, env=env, capture_output=True).returncode == 0
+    with Store(store) as st:
+        rows = st.rows()
+    assert sorted(r.params["T"] for r in rows) == list(range(3, 15))
+    assert {r.run_key: r.created for r in killed}.items() <= {r.run_key: r.created for r in rows}.items()

@@ -1,0 +1,263 @@
+"""Tests for advbound.study: planning, resumable execution, failures, durability under SIGKILL, pools, dask."""
+
+import hashlib
+import itertools
+import json
+import math
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+import time
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+from advbound.certificate import Certificate, load_certificate
+from advbound.errors import InvalidInstanceError
+from advbound.store import Store
+from advbound.study import Progress, StudySpec, load_study, plan, run_study, solver_settings
+
+
+def fake_api(grid):
+    """A stand-in for advbound.instance over a plain cartesian grid (keys in the order given)."""
+    keys = list(grid)
+
+    def grid_points(spec):
+        return [dict(zip(keys, v)) for v in itertools.product(*(grid[k] for k in keys))]
+
+    def resolved(spec, params):
+        return {"family": "synthetic", "params": dict(params)}
+
+    def spec_key(spec, params):
+        return hashlib.sha256(json.dumps(resolved(spec, params), sort_keys=True).encode()).hexdigest()
+
+    return SimpleNamespace(grid_points=grid_points, resolved=resolved, spec_key=spec_key)
+
+
+def fake_runner(task):
+    """Pretend solve: ADV±(OR_T) = sqrt(T) (common knowledge), with a 2x2 certificate."""
+    T = task["params"]["T"]
+    cert = Certificate(("0", "1"), ("0", "1"), ("0", "1"), np.ones(1), np.array([[0.0, 1.0], [1.0, 0.0]]))
+    res = {"status": "optimal", "message": "ok", "lower": math.sqrt(T), "upper": math.sqrt(T) + 1e-9,
+           "objective": math.sqrt(T), "domain_size": 2 * T, "relative_gap": 1e-9, "success": True,
+           "solver": {"name": "fake", "time": 0.01}}
+    return {"ok": True, "result": res, "certificate": cert, "time_total": 0.01, "versions": {"advbound": "x"}}
+
+
+def failing_runner(task):
+    """Fails at T = 5 unless the environment variable ADVBOUND_TEST_HEAL is set."""
+    if task["params"]["T"] == 5 and not os.environ.get("ADVBOUND_TEST_HEAL"):
+        return {"ok": False, "error": "ValueError: synthetic failure at T=5", "time_total": 0.0, "versions": {}}
+    return fake_runner(task)
+
+
+def _study(tmp_path, **kw):
+    return StudySpec(name="syn", instance=None, store=str(tmp_path / "syn.sqlite"), **kw)
+
+
+def test_plan_order_and_keys(tmp_path):
+    """Points come grid-major, bounds inner; run keys are distinct per bound and per settings."""
+    api = fake_api({"rows": [2], "T": [4, 5]})
+    st = _study(tmp_path, bounds=("general", "positive"))
+    pts = plan(st, api)
+    assert [(p.params["T"], p.bound) for p in pts] == [(4, "general"), (4, "positive"), (5, "general"),
+                                                     (5, "positive")]
+    assert len({p.run_key for p in pts}) == 4
+    other = plan(StudySpec(name="syn", instance=None, tol=1e-5, bounds=("general", "positive")), api)
+    assert not {p.run_key for p in pts} & {p.run_key for p in other}
+
+
+def test_run_then_rerun_skips(tmp_path):
+    """A second run computes nothing; each point has one row with a loadable certificate."""
+    api = fake_api({"T": [4, 5, 6]})
+    st = _study(tmp_path)
+    first = run_study(st, runner=fake_runner, api=api)
+    assert (first.planned, first.solved, first.skipped, first.failed) == (3, 3, 0, 0)
+    again = run_study(st, runner=fake_runner, api=api)
+    assert (again.solved, again.skipped) == (0, 3)
+    with Store(st.store) as s:
+        rows = s.rows()
+        assert len(rows) == 3
+        assert sorted(r.lower for r in rows) == pytest.approx([2.0, math.sqrt(5), math.sqrt(6)])
+        for r in rows:
+            assert load_certificate(r.certificate).gamma.shape == (2, 2)
+            assert r.solver == solver_settings(st)
+        assert s.get_meta("study")["name"] == "syn"
+    assert not [f for f in os.listdir(st.certificates) if f.endswith(".tmp")]
+
+
+def test_stale_temporary_removed(tmp_path):
+    """A certificate temp file of a dead writer (pid that does not exist) is removed by the next run."""
+    st = _study(tmp_path)
+    os.makedirs(st.certificates)
+    stale = os.path.join(st.certificates, ".0123456789ab.999999999.tmp")
+    open(stale, "wb").write(b"half a certificate")
+    run_study(st, runner=fake_runner, api=fake_api({"T": [4]}))
+    assert not os.path.exists(stale)
+
+
+def test_failure_recorded_and_retried_only_on_request(tmp_path, monkeypatch):
+    """A failing point is stored with its error, skipped on rerun, recomputed with retry_failed."""
+    api = fake_api({"T": [4, 5, 6]})
+    st = _study(tmp_path)
+    r1 = run_study(st, runner=failing_runner, api=api)
+    assert (r1.solved, r1.failed) == (2, 1)
+    with Store(st.store) as s:
+        bad = [r for r in s.rows() if r.failed]
+        assert len(bad) == 1 and "synthetic failure" in bad[0].error and bad[0].status == "failed"
+    monkeypatch.setenv("ADVBOUND_TEST_HEAL", "1")
+    r2 = run_study(st, runner=failing_runner, api=api)
+    assert (r2.solved, r2.failed, r2.skipped) == (0, 0, 3)
+    r3 = run_study(st, runner=failing_runner, api=api, retry_failed=True)
+    assert (r3.solved, r3.failed, r3.skipped) == (1, 0, 2)
+    with Store(st.store) as s:
+        assert s.count() == 3 and not s.failed_keys()
+
+
+class _Recorder(Progress):
+    def __init__(self):
+        self.events = []
+
+    def start(self, total, skipped):
+        self.events.append(("start", total, skipped))
+
+    def begin(self, point):
+        self.events.append(("begin", point.label))
+
+    def done(self, point, row):
+        self.events.append(("done", point.label, row.status))
+
+
+def test_progress_callbacks(tmp_path):
+    """The progress object gets start once, then begin and done per point, naming the point."""
+    rec = _Recorder()
+    run_study(_study(tmp_path), runner=fake_runner, api=fake_api({"T": [4, 5]}), progress=rec)
+    assert rec.events == [("start", 2, 0), ("begin", "T=4 general"), ("done", "T=4 general", "optimal"),
+                          ("begin", "T=5 general"), ("done", "T=5 general", "optimal")]
+
+
+def test_process_pool(tmp_path):
+    """jobs=2 gives the same rows as the in-process run."""
+    api = fake_api({"T": [4, 5, 6, 7]})
+    st = _study(tmp_path)
+    run = run_study(st, runner=fake_runner, api=api, jobs=2)
+    assert run.solved == 4
+    with Store(st.store) as s:
+        assert sorted(r.params["T"] for r in s.rows()) == [4, 5, 6, 7]
+
+
+def test_dask_local_cluster(tmp_path):
+    """The scheduler path runs the points on a dask LocalCluster (one in-process worker)."""
+    distributed = pytest.importorskip("dask.distributed")
+    api = fake_api({"T": [4, 9]})
+    st = _study(tmp_path)
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        run = run_study(st, runner=fake_runner, api=api, scheduler=cluster.scheduler_address)
+    assert run.solved == 2
+    with Store(st.store) as s:
+        assert sorted(r.lower for r in s.rows()) == pytest.approx([2.0, 3.0])
+
+
+_KILL_SCRIPT = textwrap.dedent("""
+    import sys, time
+    sys.path.insert(0, {tests!r})
+    import test_study as t
+    from advbound.study import StudySpec, run_study
+
+    def slow(task):
+        time.sleep(0.15)
+        return t.fake_runner(task)
+
+    st = StudySpec(name="syn", instance=None, store={store!r})
+    run_study(st, runner=slow, api=t.fake_api({{"T": list(range(2, 42))}}))
+""")
+
+
+def test_sigkill_mid_run_then_resume(tmp_path):
+    """SIGKILL during a run leaves only complete rows; a rerun finishes with no duplicates and no loss."""
+    store = str(tmp_path / "syn.sqlite")
+    script = tmp_path / "run.py"
+    script.write_text(_KILL_SCRIPT.format(tests=os.path.dirname(__file__), store=store))
+    proc = subprocess.Popen([sys.executable, str(script)], env=dict(os.environ, OMP_NUM_THREADS="1"))
+    try:
+        deadline = time.time() + 30
+        n = 0
+        while time.time() < deadline and n < 5:
+            time.sleep(0.1)
+            if os.path.exists(store):
+                try:
+                    with Store(store, readonly=True) as s:
+                        n = s.count()
+                except Exception:
+                    n = 0
+        assert proc.poll() is None, "the run ended before it could be killed"
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    with Store(store) as s:
+        killed = s.rows()
+    assert 5 <= len(killed) < 40
+    for r in killed:  # every stored row is complete
+        assert r.status == "optimal" and r.lower == pytest.approx(math.sqrt(r.params["T"]))
+        assert load_certificate(r.certificate).gamma.shape == (2, 2)
+    st = StudySpec(name="syn", instance=None, store=store)
+    rerun = run_study(st, runner=fake_runner, api=fake_api({"T": list(range(2, 42))}))
+    assert rerun.skipped == len(killed) and rerun.solved == 40 - len(killed)
+    with Store(store) as s:
+        rows = s.rows()
+    assert sorted(r.params["T"] for r in rows) == list(range(2, 42))
+    assert {r.run_key for r in killed} <= {r.run_key for r in rows}
+
+
+def _write(tmp_path, study_table):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent("""
+        [instance]
+        name = "or2"
+        outer = "or"
+        rows = 2
+        inner = "position_search"
+        row_length = "T - 1"
+        time = "sqrt"
+        budget = { sum_squares = "T" }
+
+        [grid]
+        T = { from = 3, to = 5 }
+
+        [study]
+        """) + study_table)
+    return p
+
+
+def test_load_study_keys(tmp_path):
+    """The [study] keys are read; store, certificates and report default from the name."""
+    pytest.importorskip("advbound.instance")
+    p = _write(tmp_path, 'name = "demo"\nbounds = ["general", "positive"]\ntol = 1e-6\noffsets = false\n')
+    st = load_study(p)
+    assert (st.name, st.bounds, st.tol, st.offsets) == ("demo", ("general", "positive"), 1e-6, (False,))
+    assert (st.store, st.certificates, st.report) == ("studies/demo.sqlite", "studies/demo-certificates",
+                                                     "reports/demo")
+    st2 = load_study(p, store=str(tmp_path / "x.sqlite"))
+    assert st2.certificates == str(tmp_path / "x-certificates")
+    assert len(plan(st)) == 6
+
+
+@pytest.mark.parametrize("table, where", [
+    ('colour = "red"\n', "colour"),
+    ('bounds = ["upper"]\n', "bounds"),
+    ('tol = -1\n', "tol"),
+    ('growth = "N"\n', "growth"),
+    ('laws = ["cubic"]\n', "laws"),
+])
+def test_load_study_rejects(tmp_path, table, where):
+    """A bad [study] entry raises InvalidInstanceError naming the file and the key."""
+    pytest.importorskip("advbound.instance")
+    p = _write(tmp_path, table)
+    with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\].*{where}"):
+        load_study(p)

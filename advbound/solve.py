@@ -1,0 +1,195 @@
+"""The public ``solve`` entry point: formulate -> solver -> verify -> :class:`~advbound.result.SolveResult`.
+
+>>> from advbound.function import PartialFunction
+>>> f = PartialFunction.from_pairs("01", [("00", 0), ("01", 1), ("10", 1), ("11", 1)])   # OR_2
+>>> r = solve(f, solver="CLARABEL")
+>>> r.status, round(r.lower, 6), round(r.upper, 6)                  # ADV±(OR_2) = sqrt(2)
+('optimal', 1.414214, 1.414214)
+
+The reported ``lower`` is always :func:`advbound.verify.verify_certificate`'s
+recomputation from Γ, never the solver's objective; ``upper`` is the repaired
+dual objective and is reported only when the dual witness passed its checks.
+A function that is constant on its domain raises
+:class:`~advbound.errors.InvalidFunctionError` (its bound is 0; there is nothing
+to solve).
+
+Methods: ``"dense"`` (this module: one dense SDP over the whole domain);
+``"symmetric"`` and ``"factored"`` are dispatched to :mod:`advbound.symmetric`
+(``solve_symmetric``) and :mod:`advbound.factored` (``solve_factored``) when those
+modules are present.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import importlib
+import inspect
+import logging
+import platform
+
+import numpy as np
+
+from . import status as _status
+from .certificate import Certificate
+from .domain import domain
+from .errors import InvalidFunctionError
+from .function import PartialFunction
+from .result import SolveResult
+
+__all__ = ["solve", "METHODS"]
+
+log = logging.getLogger("advbound")
+
+#: method name -> (module, function) for the methods implemented outside this module.
+_DISPATCH = {"symmetric": ("advbound.symmetric", "solve_symmetric"),
+             "factored": ("advbound.factored", "solve_factored")}
+METHODS = ("dense",) + tuple(_DISPATCH)
+
+#: Γ support thresholds tried by :func:`solve`; each gives a valid lower bound, the best is kept.
+_SUPPORT_THRESHOLDS = (1e-12, 1e-9, 1e-6)
+
+
+def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float = 1e-7,
+          max_iters: int | None = None, verbose: bool = False, with_dual: bool = True, method: str = "dense",
+          dual_source: str = "multipliers", repair_tol: float = 1e-2, **options) -> SolveResult:
+    """Solve the adversary program of ``f`` and return verified bounds.
+
+    Parameters
+    ----------
+    f : PartialFunction
+        Costs ``f.costs`` give the cost-weighted bound (all 1: plain ADV± / ADV).
+    bound : {"general", "positive"}
+        ADV± (negative weights allowed) or ADV (non-negative weights).
+    solver : {"SCS", "CLARABEL"}
+    tol : float
+        Solver tolerance (see :func:`advbound.sdp.solve_formulation`).
+    max_iters : int, optional
+        Solver iteration limit.
+    verbose : bool
+        Let the solver print progress.
+    with_dual : bool
+        Also verify a dual witness and report ``upper``.
+    method : {"dense", "symmetric", "factored"}
+    dual_source : {"multipliers", "program"}
+        Where the dual witness comes from (see :mod:`advbound.sdp`).
+    repair_tol : float
+        Largest relative cost of repairing the dual witness (see :mod:`advbound.verify`).
+    **options
+        Passed to the solver; unknown ones emit :class:`~advbound.errors.AdvboundWarning`.
+
+    Returns
+    -------
+    SolveResult
+        ``status`` is ``optimal`` or ``inaccurate`` when the bounds verified, ``unverified``
+        when a check failed (``message`` names it), ``failed`` / ``infeasible`` when the
+        solver returned no usable point.
+
+    Raises
+    ------
+    InvalidFunctionError
+        For a constant function, an unknown ``bound`` or ``method``.
+    SolverError
+        When the solver is unsupported or not installed.
+    """
+    if method in _DISPATCH:
+        modname, funcname = _DISPATCH[method]
+        try:
+            mod = importlib.import_module(modname)
+        except ModuleNotFoundError:
+            raise InvalidFunctionError(f"method {method!r} is not available in this installation") from None
+        func = getattr(mod, funcname)
+        # pass the common settings the other method declares; everything else goes through **options
+        params = inspect.signature(func).parameters
+        extra = {k: v for k, v in dict(solver=solver, max_iters=max_iters, with_dual=with_dual).items()
+                 if k in params}
+        return func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)
+    if method != "dense":
+        raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
+    if bound not in ("general", "positive"):
+        raise InvalidFunctionError(f"bound {bound!r} is unknown; use 'general' or 'positive'")
+    if f.is_constant:
+        raise InvalidFunctionError(f"function is constant on its domain (every input gives {f.outputs[0]!r}): "
+                                   f"its adversary bound is 0")
+    from . import sdp
+    from .verify import extract_gamma, verify_certificate
+
+    dom = domain(f)
+    # Σρ = |D| speeds up the first-order SCS several times; the interior-point CLARABEL is more
+    # accurate on the Σρ = 1 program (see advbound.sdp.Formulation.scale)
+    form = sdp.formulate(dom, bound, scale=None if str(solver).upper() == "SCS" else 1.0)
+    raw = sdp.solve_formulation(form, solver=solver, tol=tol, max_iters=max_iters, verbose=verbose,
+                                dual_source=dual_source, **options)
+    st = _status.from_cvxpy(raw.status)
+    base = dict(bound=bound, domain_size=f.size, solver_stats=raw.stats, objective=raw.objective)
+    if raw.weights is None:
+        if st in _status.SUCCESS:
+            st = _status.FAILED
+        return SolveResult(message=f"{raw.message}; no point returned: {_status.MESSAGES[st]}", status=st, **base)
+
+    meta = _metadata(f, bound, raw, tol, max_iters, method, dual_source)
+    meta["verification"] = {"repair_tol": float(repair_tol), "support_thresholds": list(_SUPPORT_THRESHOLDS)}
+    best = None
+    for thr in _SUPPORT_THRESHOLDS:
+        gamma = extract_gamma(raw.weights, raw.rho, threshold=thr)
+        cert = Certificate(alphabet=f.alphabet, inputs=f.inputs, outputs=f.outputs, costs=np.asarray(f.costs),
+                           gamma=gamma, metadata=meta)
+        rep = verify_certificate(cert, bound=bound, repair_tol=repair_tol)
+        if best is None or rep.lower > best[1].lower:
+            best = (gamma, rep)
+    gamma = best[0]
+    dual = {}
+    if with_dual and raw.dual_plus is not None:
+        dual = dict(dual_t=raw.dual_t, dual_plus=raw.dual_plus, dual_minus=raw.dual_minus)
+    cert = Certificate(alphabet=f.alphabet, inputs=f.inputs, outputs=f.outputs, costs=np.asarray(f.costs),
+                       gamma=gamma, metadata=meta, **dual)
+    rep = verify_certificate(cert, bound=bound, repair_tol=repair_tol)
+    meta = dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper)
+    cert = dataclasses.replace(cert, metadata=meta)
+
+    lower, upper = rep.lower, rep.upper
+    if not rep.passed:
+        failed = ", ".join(rep.failed_checks())
+        msg = f"check(s) {failed} failed after the solver returned {raw.status!r}: {rep.message}"
+        st = _status.UNVERIFIED
+        upper = None
+    elif with_dual and raw.dual_plus is None:
+        msg = f"solver returned {raw.status!r} but no dual witness; lower bound verified, no upper bound"
+        st = _status.UNVERIFIED if st == _status.OPTIMAL else st
+    elif st in _status.SUCCESS:
+        msg = _status.MESSAGES[st] if with_dual else "solved; lower bound verified (dual not requested)"
+        if upper is not None and st == _status.OPTIMAL:
+            rel = (upper - lower) / max(abs(upper), 1e-300)
+            if rel > max(1e-3, 1e3 * tol):
+                st = _status.INACCURATE
+                msg = f"solver claimed optimality but the verified relative gap is {rel:.2g}"
+    else:
+        # the point still passed verification, so its numbers are valid bounds; the status says why
+        # the gap may be poor
+        msg = f"solver returned {raw.status!r}: {_status.MESSAGES[st]}"
+    log.info("solve %s: %s lower=%s upper=%s", f.description or "function", st, lower, upper)
+    return SolveResult(message=msg, status=st, lower=lower, upper=upper, certificate=cert, verification=rep,
+                       **base)
+
+
+def _metadata(f, bound, raw, tol, max_iters, method, dual_source) -> dict:
+    import scipy
+
+    from . import __version__
+    try:
+        import cvxpy
+        cv = cvxpy.__version__
+    except Exception:  # pragma: no cover
+        cv = ""
+    st = raw.stats
+    return {
+        "description": f.description,
+        "bound": bound,
+        "method": method,
+        "solver": {"name": st.name, "version": st.version, "tol": float(tol),
+                   "max_iters": None if max_iters is None else int(max_iters), "options": dict(st.options),
+                   "status": raw.status, "iterations": st.iterations, "time": float(st.time),
+                   "dual_source": dual_source},
+        "versions": {"advbound": __version__, "numpy": np.__version__, "scipy": scipy.__version__,
+                     "cvxpy": cv, "python": platform.python_version()},
+        "objective": raw.objective,
+    }

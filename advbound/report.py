@@ -5,7 +5,10 @@ them (:func:`fit_series`, through :func:`advbound.fit.compare_models`) and
 writing the report directory (:func:`write_report`): ``summary.md``; figures in
 PNG and PDF (bound vs growth variable with fitted curves and the upper-bound
 band, the ratios ``L/√T`` and ``L/√(T log T)``, fit residuals); LaTeX tables
-(booktabs); the data as CSV and JSON; and provenance.  matplotlib is imported
+(booktabs); the data as CSV and JSON; and provenance.  When the store holds exact
+t-query rows (kind ``"exact"``), it adds a table of them next to ADV± with the check
+``t ≥ ((1 − 2√(ε(1−ε)))/2)·ADV±`` (:func:`collect_exact`, :func:`adversary_check`) and the
+figure ``exact_vs_T``.  matplotlib is imported
 inside the drawing functions (Agg canvas, no pyplot state).
 
 Typical call::
@@ -33,9 +36,11 @@ from .errors import AdvboundError
 from .store import Store, StoredRow
 
 __all__ = ["Series", "ReportFiles", "open_store", "collect_series", "fit_series", "write_report",
-           "latex_results_table", "latex_fit_table"]
+           "latex_results_table", "latex_fit_table", "ExactEntry", "ExactPoint", "collect_exact",
+           "adversary_factor", "adversary_check", "markdown_exact_table", "latex_exact_table", "CHECK_SLACK"]
 
 _KIND = "adversary"
+_EXACT_KIND = "exact"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -337,6 +342,338 @@ def _plot_residuals(fits, growth, out) -> list[str]:
     return _save(fig, out, "residuals")
 
 
+# -- exact t-query points ------------------------------------------------------------------
+def adversary_factor(error: float) -> float:
+    """``(1 − 2·sqrt(ε(1−ε)))/2``, the factor in ``Q_ε ≥ factor · ADV±`` ("Negative weights make
+    adversaries stronger", 2007, arXiv:quant-ph/0611054).
+
+    >>> adversary_factor(0.0), adversary_factor(0.5)
+    (0.5, 0.0)
+    """
+    e = min(max(float(error), 0.0), 1.0)
+    return (1.0 - 2.0 * math.sqrt(e * (1.0 - e))) / 2.0
+
+
+#: Slack in the comparison ``t ≥ factor · ADV±`` (``t`` is an integer; the bound is a float).
+CHECK_SLACK = 1e-9
+
+
+def adversary_check(queries, adv_lower, *, success=None, error=None, reached=None):
+    """The check ``t ≥ ((1 − 2·sqrt(ε(1−ε)))/2) · ADV±`` with verified numbers.
+
+    Parameters
+    ----------
+    queries : int or None
+        ``t``: the fixed query count, or the least ``t`` found for ``error``.
+    adv_lower : float or None
+        Verified lower bound on ADV± of the same function.
+    success : float, optional
+        Fixed-t points: verified achievable success probability ``p``; the check uses ``ε = 1 − p``
+        (the largest error consistent with ``p``) and needs ``p > 1/2``.
+    error, reached : optional
+        Least-t points: the target ``ε`` (used as is) and whether some ``t`` reached it.
+
+    Returns
+    -------
+    (epsilon, required, verdict)
+        ``required = factor(ε) · adv_lower``; ``verdict`` is ``"pass"``, ``"fail"`` or ``"n/a"``
+        (then ``epsilon``/``required`` may be ``None``).
+
+    >>> adversary_check(1, 2.0, success=0.9)[2], adversary_check(1, 2.0, success=0.5)[2]
+    ('pass', 'n/a')
+    >>> adversary_check(0, 2.0, error=0.0, reached=True)     # 0 queries cannot compute a function with ADV± = 2
+    (0.0, 1.0, 'fail')
+    """
+    if error is not None:
+        eps = float(error)
+        if not reached or queries is None:
+            return eps, None, "n/a"
+    else:
+        if success is None or not success > 0.5:
+            return None, None, "n/a"
+        eps = 1.0 - float(success)
+    if adv_lower is None or queries is None:
+        return eps, None, "n/a"
+    need = adversary_factor(eps) * float(adv_lower)
+    return eps, need, ("pass" if queries >= need - CHECK_SLACK else "fail")
+
+
+@dataclasses.dataclass(frozen=True)
+class ExactEntry:
+    """One exact request at one grid point (numbers from its stored row) and its adversary check.
+
+    ``request`` is ``"t=2"`` (best success of 2 queries) or ``"eps=0.1"`` (least t for error 0.1);
+    ``queries`` is t (for ``eps=`` requests the least t found, ``None`` when not reached);
+    ``success``/``upper`` are the row's ``lower``/``upper`` (verified achievable success
+    probability, verified upper bound); ``epsilon``, ``required``, ``check`` are from
+    :func:`adversary_check`.
+    """
+
+    request: str
+    status: str
+    queries: int | None = None
+    success: float | None = None
+    upper: float | None = None
+    error: float | None = None
+    max_queries: int | None = None
+    reached: bool | None = None
+    epsilon: float | None = None
+    required: float | None = None
+    check: str = "n/a"
+    failed: bool = False
+    run_key: str | None = None
+
+    def to_dict(self) -> dict:
+        """Plain dict of every field."""
+        return dataclasses.asdict(self)
+
+
+@dataclasses.dataclass(frozen=True)
+class ExactPoint:
+    """A grid point with its ADV± numbers and one :class:`ExactEntry` (or ``None``) per request column."""
+
+    params: dict
+    domain_size: int | None
+    adv_lower: float | None
+    adv_upper: float | None
+    entries: tuple
+
+    def to_dict(self) -> dict:
+        """Plain dict (entries as dicts)."""
+        return {"params": self.params, "domain_size": self.domain_size, "adv_lower": self.adv_lower,
+                "adv_upper": self.adv_upper,
+                "entries": [None if e is None else e.to_dict() for e in self.entries]}
+
+
+def _request_of(r: StoredRow) -> tuple | None:
+    """``(sort key, label)`` of an exact row's request, from its settings (else from its values)."""
+    req = r.solver or {}
+    if req.get("queries") is not None and req.get("error") is None:
+        return (0, float(req["queries"])), f"t={int(req['queries'])}"
+    if req.get("error") is not None:
+        return (1, float(req["error"])), f"eps={float(req['error']):g}"
+    v = r.values or {}
+    if v.get("target_error") is not None:
+        return (1, float(v["target_error"])), f"eps={float(v['target_error']):g}"
+    if v.get("queries") is not None:
+        return (0, float(v["queries"])), f"t={int(v['queries'])}"
+    return None
+
+
+def _has_exact(meta: dict, rows: list[StoredRow]) -> bool:
+    return bool(meta.get("exact")) or any("success_probability" in (r.values or {}) for r in rows)
+
+
+def collect_exact(store: Store, meta: dict | None = None) -> tuple[list[str], list[ExactPoint]]:
+    """The exact rows next to ADV±: ``(request columns, one ExactPoint per grid point)``.
+
+    Columns are the fixed-t requests by t, then the least-t requests by ε.  The ADV± numbers are
+    those of the latest successful ``general`` adversary row of the same instance (``None`` if absent).
+    """
+    meta = meta if meta is not None else (store.get_meta("study") or {})
+    growth = meta.get("growth") or "T"
+    adv = {}
+    for r in store.rows(kind=_KIND, bound="general", successful_only=True):
+        adv[r.spec_key] = r
+    cells: dict = {}
+    points: dict = {}
+    columns: dict = {}
+    for r in store.rows(kind=_EXACT_KIND):
+        req = _request_of(r)
+        if req is None:
+            continue
+        columns[req[1]] = req[0]
+        points.setdefault(r.spec_key, r.params)
+        cells[(r.spec_key, req[1])] = r  # oldest first: later rows win
+    cols = sorted(columns, key=lambda c: columns[c])
+    out = []
+    for spec_key, params in points.items():
+        a = adv.get(spec_key)
+        adv_lower = None if a is None else a.lower
+        entries = []
+        dsize = None if a is None else a.domain_size
+        for c in cols:
+            r = cells.get((spec_key, c))
+            if r is None:
+                entries.append(None)
+                continue
+            dsize = dsize if dsize is not None else r.domain_size
+            entries.append(_entry(r, c, adv_lower))
+        out.append(ExactPoint(dict(params), dsize, adv_lower, None if a is None else a.upper, tuple(entries)))
+    keys = [k for k in (meta.get("grid") or {}) if k != growth]
+    out.sort(key=lambda p: (tuple(_sortable(p.params.get(k)) for k in keys), _sortable(p.params.get(growth)),
+                            json.dumps(p.params, sort_keys=True, default=str)))
+    return cols, out
+
+
+def _entry(r: StoredRow, label: str, adv_lower) -> ExactEntry:
+    v = r.values or {}
+    req = r.solver or {}
+    least = label.startswith("eps=")
+    if r.failed:
+        return ExactEntry(label, r.status, failed=True, run_key=r.run_key,
+                          error=v.get("target_error", req.get("error")) if least else None)
+    q = v.get("queries", req.get("queries"))
+    q = None if q is None else int(q)
+    if least:
+        err = v.get("target_error", req.get("error"))
+        reached = bool(v.get("reached"))
+        eps, need, verdict = adversary_check(q if reached else None, adv_lower, error=err, reached=reached)
+        return ExactEntry(label, r.status, q if reached else None, r.lower, r.upper, err,
+                          req.get("max_queries", q), reached, eps, need, verdict, run_key=r.run_key)
+    eps, need, verdict = adversary_check(q, adv_lower, success=r.lower)
+    return ExactEntry(label, r.status, q, r.lower, r.upper, None, None, None, eps, need, verdict,
+                      run_key=r.run_key)
+
+
+def _col_title(c: str, tex: bool = False) -> tuple[str, str]:
+    if c.startswith("t="):
+        return ((f"${c}$ success", f"${c}$ check") if tex else (f"{c} success", f"{c} check"))
+    e = c[4:]
+    return ((rf"$\varepsilon={e}$ least $t$", rf"$\varepsilon={e}$ check") if tex
+            else (f"ε={e} least t", f"ε={e} check"))
+
+
+def _cells(e: ExactEntry | None, tex: bool = False) -> tuple[str, str]:
+    """(value cell, check cell) of one entry."""
+    if e is None:
+        return "--", "--"
+    if e.failed:
+        return e.status, "n/a"
+    if e.request.startswith("t="):
+        value = f"[{_f(e.success)}, {_f(e.upper)}]"
+    elif e.reached:
+        value = str(e.queries)
+    else:
+        value = (f"$>{e.max_queries}$" if tex else f"> {e.max_queries}") if e.max_queries is not None else "not reached"
+    if e.check == "n/a":
+        if e.request.startswith("t="):
+            why = ("$p \\leq 1/2$" if tex else "p ≤ 1/2") if e.epsilon is None else None
+        else:
+            why = "not reached" if not e.reached else None
+        why = why or ("no ADV$^\\pm$" if tex else "no ADV±")
+        return value, f"n/a ({why})"
+    t = e.queries
+    if tex:
+        rel = r"\geq" if e.check == "pass" else "<"
+        return value, rf"{e.check} (${t} {rel} {e.required:.4f}$)"
+    rel = "≥" if e.check == "pass" else "<"
+    return value, f"{e.check}: {t} {rel} {e.required:.4f} (ε = {e.epsilon:.4f})"
+
+
+def _param_keys(points: list[ExactPoint], meta: dict) -> list[str]:
+    keys = [k for k in (meta.get("grid") or {})]
+    for p in points:
+        for k in p.params:
+            if k not in keys:
+                keys.append(k)
+    return [k for k in keys if any(k in p.params for p in points)]
+
+
+def markdown_exact_table(columns: list[str], points: list[ExactPoint], meta: dict | None = None) -> str:
+    """Markdown table: grid parameters, domain size, ADV± lower/upper, then per request value and check."""
+    keys = _param_keys(points, meta or {})
+    head = [*keys, "domain size", "ADV± lower", "ADV± upper"]
+    for c in columns:
+        head += list(_col_title(c))
+    lines = ["| " + " | ".join(head) + " |", "|" + "|".join("---:" for _ in head) + "|"]
+    for p in points:
+        row = [str(p.params.get(k, "")) for k in keys]
+        row += ["--" if p.domain_size is None else str(p.domain_size), _f(p.adv_lower), _f(p.adv_upper)]
+        for e in p.entries:
+            row += list(_cells(e))
+        lines.append("| " + " | ".join(row) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def latex_exact_table(columns: list[str], points: list[ExactPoint], meta: dict | None = None) -> str:
+    """The same table as :func:`markdown_exact_table` as a booktabs ``tabular``."""
+    keys = _param_keys(points, meta or {})
+    spec = "r" * (len(keys) + 3 + 2 * len(columns))
+    head = [f"${_tex(k)}$" for k in keys] + [r"$|D|$", r"ADV$^\pm$ lower", r"ADV$^\pm$ upper"]
+    for c in columns:
+        head += list(_col_title(c, tex=True))
+    lines = [rf"\begin{{tabular}}{{{spec}}}", r"\toprule", " & ".join(head) + r" \\", r"\midrule"]
+    for p in points:
+        row = [_tex(p.params.get(k, "")) for k in keys]
+        row += ["--" if p.domain_size is None else str(p.domain_size), _f(p.adv_lower), _f(p.adv_upper)]
+        for e in p.entries:
+            v, c = _cells(e, tex=True)
+            row += [v if v.startswith("$") else _tex(v), c if "$" in c else _tex(c)]
+        lines.append(" & ".join(row) + r" \\")
+    lines += [r"\bottomrule", r"\end{tabular}"]
+    return "\n".join(lines) + "\n"
+
+
+def _plot_exact(columns, points, growth, series_key, out) -> list[str]:
+    import numpy as np
+    fig = _figure(2)
+    ax_q, ax_p = fig.subplots(1, 2, squeeze=False)[0]
+    groups: dict = {}
+    for p in points:
+        if growth not in p.params:
+            continue
+        key = p.params.get(series_key) if series_key else None
+        groups.setdefault(key, []).append(p)
+    ci = 0
+    for key, pts in groups.items():
+        pts.sort(key=lambda p: float(p.params[growth]))
+        T = np.array([float(p.params[growth]) for p in pts])
+        sfx = "" if key is None else f", {series_key}={key}"
+        lo = np.array([np.nan if p.adv_lower is None else p.adv_lower for p in pts])
+        up = np.array([np.nan if p.adv_upper is None else p.adv_upper for p in pts])
+        color = f"C{ci % 10}"
+        ci += 1
+        ax_q.plot(T, lo, "o-", color=color, label=f"ADV± lower{sfx}")
+        ax_q.fill_between(T, lo, np.where(np.isnan(up), lo, up), color=color, alpha=0.25, linewidth=0)
+        for j, c in enumerate(columns):
+            if not c.startswith("eps="):
+                continue
+            color = f"C{ci % 10}"
+            ci += 1
+            eps = float(c[4:])
+            ax_q.plot(T, adversary_factor(eps) * lo, "--", color=color, linewidth=1,
+                      label=f"(1-2√(ε(1-ε)))/2·ADV±, ε={eps:g}{sfx}")
+            least = np.array([np.nan if (e := p.entries[j]) is None or not e.reached else e.queries for p in pts],
+                             dtype=float)
+            ax_q.plot(T, least, "s", color=color, label=f"least t, ε={eps:g}{sfx}")
+        for j, c in enumerate(columns):
+            if not c.startswith("t="):
+                continue
+            color = f"C{ci % 10}"
+            ci += 1
+            ents = [p.entries[j] for p in pts]
+            s = np.array([np.nan if e is None or e.failed or e.success is None else e.success for e in ents])
+            u = np.array([np.nan if e is None or e.failed or e.upper is None else e.upper for e in ents])
+            ax_p.plot(T, s, "o-", color=color, label=f"{c}{sfx}")
+            ax_p.fill_between(T, s, np.where(np.isnan(u), s, u), color=color, alpha=0.25, linewidth=0)
+    ax_q.set_xlabel(growth)
+    ax_q.set_ylabel("queries")
+    ax_q.set_title("ADV± (band: [lower, upper]) and least t", fontsize="medium")
+    ax_p.set_xlabel(growth)
+    ax_p.set_ylabel("success probability")
+    ax_p.set_title("best t-query success probability (verified)", fontsize="medium")
+    from matplotlib.ticker import MaxNLocator
+    for ax in (ax_q, ax_p):
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize="x-small")
+    return _save(fig, out, "exact_vs_T")
+
+
+_EXACT_PROVES = """\
+Exact points solve the t-query semidefinite program of "Quantum query complexity and semi-definite
+programming" (2003) for the same function (see `docs/exact.md`). **success** is `[p, u]`: `p` is
+achieved by an explicit algorithm rebuilt from the solver's point (verified with numpy), `u` is a
+verified upper bound on every t-query algorithm. **least t** is the least t whose verified
+achievable success is at least 1 − ε − decision tolerance (`> N`: none up to `max_queries`).
+The **check** evaluates t ≥ ((1 − 2·sqrt(ε(1−ε)))/2)·L with L the verified ADV± lower bound
+("Negative weights make adversaries stronger", 2007, arXiv:quant-ph/0611054): for least-t
+columns with the target ε, for fixed-t columns with ε = 1 − p, the largest error consistent with
+success p (only when p > 1/2). A `fail` would mean an inconsistency between the two computations.
+"""
+
+
 # -- the report -----------------------------------------------------------------------------
 _PROVES = """\
 ## What these numbers mean
@@ -382,6 +719,8 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
         meta = st.get_meta("study") or {}
         rows = st.rows(kind=_KIND)
         series = collect_series(st, meta)
+        exact_rows = st.rows(kind=_EXACT_KIND)
+        exact = collect_exact(st, meta) if _has_exact(meta, exact_rows) else None
         store_path = st.path
     if not rows:
         raise AdvboundError(f"{store_path}: the store holds no adversary results yet; run the study first")
@@ -397,6 +736,17 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
     t1.write_text(latex_results_table(series, growth))
     t2 = out / "table_fits.tex"
     t2.write_text(latex_fit_table(fits))
+    tables = [t1, t2]
+    exact_json = None
+    if exact is not None:
+        figures += _plot_exact(exact[0], exact[1], growth, meta.get("series"), out)
+        t3 = out / "table_exact.tex"
+        t3.write_text(latex_exact_table(exact[0], exact[1], meta))
+        tables.append(t3)
+        exact_json = out / "exact.json"
+        exact_json.write_text(json.dumps({"columns": exact[0], "points": [p.to_dict() for p in exact[1]],
+                                          "rows": [r.to_dict() for r in exact_rows]},
+                                         indent=1, sort_keys=True, default=str))
 
     data_rows = [r.to_dict() for r in rows]
     csv_path = out / "data.csv"
@@ -424,18 +774,25 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
                     "status": r.status, "certificate": r.certificate, "created": r.created} for r in rows],
     }
     prov["solver_settings"] = [json.loads(s) for s in prov["solver_settings"]]
+    if exact is not None:
+        prov["exact_settings"] = [json.loads(x) for x in sorted({json.dumps(r.solver, sort_keys=True)
+                                                                 for r in exact_rows})]
+        prov["exact_points"] = [{"run_key": r.run_key, "spec_key": r.spec_key, "params": r.params,
+                                 "request": r.solver, "status": r.status, "created": r.created,
+                                 "versions": r.versions} for r in exact_rows]
     prov_path = out / "provenance.json"
     prov_path.write_text(json.dumps(prov, indent=1, sort_keys=True, default=str))
 
     summary = out / "summary.md"
+    data = [csv_path, json_path, *([exact_json] if exact_json else []), fits_path]
     summary.write_text(_summary(meta, name, rows, series, fits, growth, generated, store_path, figures,
-                                [t1, t2], [csv_path, json_path, fits_path], prov_path, out))
-    return ReportFiles(str(out), str(summary), tuple(figures), (str(t1), str(t2)),
-                       (str(csv_path), str(json_path), str(fits_path)), str(prov_path))
+                                tables, data, prov_path, out, exact))
+    return ReportFiles(str(out), str(summary), tuple(figures), tuple(str(t) for t in tables),
+                       tuple(str(d) for d in data), str(prov_path))
 
 
 def _summary(meta, name, rows, series, fits, growth, generated, store_path, figures, tables, data, prov,
-             out) -> str:
+             out, exact=None) -> str:
     b = io.StringIO()
     w = b.write
     w(f"# Study `{name}`\n\n")
@@ -467,6 +824,16 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
             w(f"| {t:g} | {d} | {_f(lo)} | {_f(up)} | {_g(gap, 2)} |\n")
         w("\n")
     w(_PROVES + "\n")
+    if exact is not None:
+        w("## Exact t-query points next to ADV±\n\n")
+        ex = meta.get("exact") or {}
+        if ex:
+            w(f"Exact settings: solver {ex.get('solver')}, tol {ex.get('tol')}, symmetry {ex.get('symmetry')}, "
+              f"decision tolerance {ex.get('decision_tol')}.\n\n")
+        w(markdown_exact_table(exact[0], exact[1], meta) + "\n")
+        checks = [e.check for p in exact[1] for e in p.entries if e is not None]
+        w(f"Checks: {checks.count('pass')} pass, {checks.count('fail')} fail, {checks.count('n/a')} n/a.\n\n")
+        w(_EXACT_PROVES + "\n")
     w("## Growth-law fits (verified lower bounds)\n\n")
     w("Least squares with relative weights; parameters ± standard errors from the Jacobian; "
       "bracketed intervals are seeded residual-bootstrap 95% intervals. Ranked by the information "

@@ -4,7 +4,8 @@ This module owns the file format of a study's results.  A :class:`Store` wraps
 one sqlite database (standard library :mod:`sqlite3`, WAL journal).  Each row is
 a finished point: which instance (its resolved spec as JSON and its hash), which
 parameters, which *kind* of computation (``"adversary"`` for ADV/ADV± solves,
-other kinds such as ``"exact"`` later), the common numbers (lower, upper, gap,
+``"exact"`` for exact t-query points, whose lower/upper are the verified achievable
+success probability and its verified upper bound), the common numbers (lower, upper, gap,
 status), a JSON ``values`` column for anything kind-specific, the solver
 settings, the package versions, timings, the certificate path, the error text of
 a failed point and the time it was written.

@@ -3,7 +3,10 @@
 This module owns the study spec (the ``[study]`` table of a study TOML file, read
 through :func:`advbound.instance.load_instance`), the expansion of a study into
 points (:func:`plan`), and their execution (:func:`run_study`): in process, on a
-local process pool (``jobs``) or on a dask.distributed cluster (``scheduler``).
+local process pool (``jobs``) or on a dask.distributed cluster (``scheduler``).  Besides the adversary
+bounds a study may ask for exact t-query points (``exact = {queries = [1, 2]}``
+and/or ``exact = {error = 0.1, max_queries = 4}``, solved with
+:mod:`advbound.exact`), stored as rows of kind ``"exact"``.
 Workers compute and return; only the calling process writes certificates and
 rows (see :mod:`advbound.store`).  The library never prints: progress goes to an
 optional callback object.
@@ -35,12 +38,20 @@ from .errors import AdvboundError, InvalidInstanceError
 from .store import ERROR_STATUS, Store, StoredRow, make_row, package_versions, run_key
 
 __all__ = ["StudySpec", "Point", "StudyRun", "Progress", "load_study", "default_study_path", "plan",
-           "solver_settings", "solve_point", "run_study", "study_meta", "KIND"]
+           "solver_settings", "exact_settings", "solve_point", "run_study", "study_meta", "KIND", "EXACT_KIND",
+           "EXACT_DEFAULTS"]
 
 log = logging.getLogger("advbound")
 
 #: The kind of the rows this module writes.
 KIND = "adversary"
+
+#: The kind of the rows of exact t-query points (:mod:`advbound.exact`).
+EXACT_KIND = "exact"
+
+#: Defaults of the optional keys of ``[study] exact`` (besides ``queries``, ``error``, ``max_queries``).
+EXACT_DEFAULTS = {"solver": "CLARABEL", "tol": 1e-8, "decision_tol": 1e-4, "symmetry": True}
+_EXACT_KEYS = ("queries", "error", "max_queries", *EXACT_DEFAULTS)
 
 _BOUNDS = ("general", "positive")
 _LAWS = ("sqrt", "sqrt_log", "power", "power_log")
@@ -64,6 +75,8 @@ STUDY_KEYS = {
     "bootstrap": "bootstrap resamples per fit (default 200)",
     "seed": "bootstrap seed (default 0)",
     "report": "report directory (default reports/<name>)",
+    "exact": "table: exact t-query points (queries = [t, ...] and/or error = ε with max_queries = N; "
+             "optional solver, tol, decision_tol, symmetry)",
 }
 
 
@@ -74,6 +87,8 @@ class StudySpec:
 
     Path fields are relative to the current directory unless absolute.  ``store``,
     ``certificates`` and ``report`` default from ``name`` (see the module docstring example).
+    ``exact`` is empty (no exact points) or the normalised ``[study] exact`` table: ``queries``
+    (tuple of t), ``error`` and ``max_queries`` (or ``None``), and the keys of :data:`EXACT_DEFAULTS`.
     """
 
     name: str
@@ -95,6 +110,7 @@ class StudySpec:
     bootstrap: int = 200
     seed: int = 0
     report: str = ""
+    exact: dict = dataclasses.field(default_factory=dict)
 
     def __post_init__(self):
         if not self.store:
@@ -108,19 +124,33 @@ class StudySpec:
 
 @dataclasses.dataclass(frozen=True)
 class Point:
-    """One unit of work: an instance's parameters and one bound, with its keys."""
+    """One unit of work: an instance's parameters and one bound (or one exact request), with its keys.
+
+    For ``kind == "exact"`` points ``bound`` is ``None`` and ``request`` holds the exact settings
+    (:func:`exact_settings`): ``queries`` (one t) or ``error`` and ``max_queries``.
+    """
 
     index: int
     params: dict
-    bound: str
+    bound: str | None
     spec_key: str
     run_key: str
     spec: dict
+    kind: str = KIND
+    request: dict | None = None
+
+    @property
+    def what(self) -> str:
+        """The bound, or ``"exact t=2"`` / ``"exact eps=0.1"`` for an exact point."""
+        if self.kind != EXACT_KIND:
+            return str(self.bound)
+        r = self.request or {}
+        return f"exact t={r['queries']}" if r.get("queries") is not None else f"exact eps={r.get('error'):g}"
 
     @property
     def label(self) -> str:
-        """Short human name, e.g. ``"T=5 rows=3 general"``."""
-        return " ".join([*(f"{k}={v}" for k, v in self.params.items()), self.bound])
+        """Short human name, e.g. ``"T=5 rows=3 general"`` or ``"T=5 rows=3 exact t=2"``."""
+        return " ".join([*(f"{k}={v}" for k, v in self.params.items()), self.what])
 
 
 @dataclasses.dataclass(frozen=True)
@@ -242,6 +272,8 @@ def load_study(path, *, store: str | None = None, certificates: str | None = Non
         if not (isinstance(o, bool) or o == "both"):
             raise _err(path, f"offsets = {o!r}: expected 'both', true or false")
         kw["offsets"] = table[o]
+    if "exact" in raw:
+        kw["exact"] = _parse_exact(path, raw["exact"])
     grid = dict(getattr(spec, "grid", None) or {})
     for key in ("growth", "series"):
         v = kw.get(key, "T" if key == "growth" else None)
@@ -254,6 +286,76 @@ def load_study(path, *, store: str | None = None, certificates: str | None = Non
                 raise _err(path, f"{key} must be a non-empty path string")
             kw[key] = v
     return StudySpec(**kw)
+
+
+def _is_int(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_num(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _parse_exact(path, ex) -> dict:
+    """Validate and normalise ``[study] exact`` (see :data:`STUDY_KEYS`)."""
+    if not isinstance(ex, dict):
+        raise _err(path, f"exact = {ex!r} must be a table, e.g. {{ queries = [1, 2] }}")
+    unknown = sorted(set(ex) - set(_EXACT_KEYS))
+    if unknown:
+        raise _err(path, f"exact: unknown key {unknown[0]!r}; known: {', '.join(_EXACT_KEYS)}")
+    if "queries" not in ex and "error" not in ex:
+        raise _err(path, "exact needs queries = [t, ...] and/or error = ε")
+    out: dict[str, Any] = {"queries": (), "error": None, "max_queries": None}
+    if "queries" in ex:
+        q = ex["queries"]
+        q = [q] if _is_int(q) else q
+        if not isinstance(q, list) or not q or any(not _is_int(t) or t < 0 for t in q):
+            raise _err(path, f"exact: queries = {ex['queries']!r} must be a list of integers >= 0")
+        out["queries"] = tuple(dict.fromkeys(q))
+    if "error" in ex:
+        e = ex["error"]
+        if not _is_num(e) or not 0 <= e < 1:
+            raise _err(path, f"exact: error = {e!r} must be a number in [0, 1)")
+        out["error"] = float(e)
+    if "max_queries" in ex:
+        m = ex["max_queries"]
+        if out["error"] is None:
+            raise _err(path, "exact: max_queries needs error = ε")
+        if not _is_int(m) or m < 0:
+            raise _err(path, f"exact: max_queries = {m!r} must be an integer >= 0")
+        out["max_queries"] = m
+    for key, default in EXACT_DEFAULTS.items():
+        v = ex.get(key, default)
+        if key == "solver" and v not in ("CLARABEL", "SCS"):
+            raise _err(path, f"exact: solver = {v!r} must be 'CLARABEL' or 'SCS'")
+        if key in ("tol", "decision_tol") and (not _is_num(v) or not v > 0):
+            raise _err(path, f"exact: {key} = {v!r} must be a positive number")
+        if key == "symmetry" and not isinstance(v, bool):
+            raise _err(path, f"exact: symmetry = {v!r} must be true or false")
+        out[key] = float(v) if key in ("tol", "decision_tol") else v
+    return out
+
+
+def exact_settings(study: StudySpec) -> list[dict]:
+    """One settings dict per exact request of ``study`` (they identify the point with the instance hash).
+
+    Each has ``solver``, ``tol`` and ``symmetry``, and either ``queries`` (one t) or ``error``,
+    ``max_queries`` and ``decision_tol``.  Empty when the study asks for no exact points.
+
+    >>> ex = {"queries": (1, 2), "error": 0.1, "max_queries": 4, **EXACT_DEFAULTS}
+    >>> [sorted(s) for s in exact_settings(StudySpec(name="d", instance=None, exact=ex))][::2]
+    [['queries', 'solver', 'symmetry', 'tol'], ['decision_tol', 'error', 'max_queries', 'solver', 'symmetry', 'tol']]
+    """
+    ex = study.exact
+    if not ex:
+        return []
+    base = {"solver": ex.get("solver", EXACT_DEFAULTS["solver"]), "tol": float(ex.get("tol", EXACT_DEFAULTS["tol"])),
+            "symmetry": bool(ex.get("symmetry", EXACT_DEFAULTS["symmetry"]))}
+    out = [dict(base, queries=int(t)) for t in ex.get("queries") or ()]
+    if ex.get("error") is not None:
+        out.append(dict(base, error=float(ex["error"]), max_queries=ex.get("max_queries"),
+                        decision_tol=float(ex.get("decision_tol", EXACT_DEFAULTS["decision_tol"]))))
+    return out
 
 
 def solver_settings(study: StudySpec) -> dict:
@@ -271,6 +373,7 @@ def study_meta(study: StudySpec) -> dict:
         "series": study.series, "laws": list(study.laws), "offsets": list(study.offsets),
         "bootstrap": study.bootstrap, "seed": study.seed, "report": study.report,
         "certificates": study.certificates,
+        "exact": _jsonable(study.exact) if study.exact else None,
         "instance": _jsonable(getattr(inst, "instance", None)), "grid": _jsonable(getattr(inst, "grid", None)),
     }
 
@@ -280,7 +383,8 @@ def _jsonable(obj):
 
 
 def plan(study: StudySpec, api=None) -> list[Point]:
-    """Every point of the study in a fixed order: grid points (in :func:`grid_points` order) × bounds."""
+    """Every point of the study in a fixed order: grid points (in :func:`grid_points` order) × (bounds,
+    then the exact requests of :func:`exact_settings`)."""
     from . import __version__
     api = api or _instance_api()
     settings = solver_settings(study)
@@ -292,6 +396,9 @@ def plan(study: StudySpec, api=None) -> list[Point]:
         for bound in study.bounds:
             rk = run_key(KIND, key, bound, settings, __version__)
             points.append(Point(len(points), params, bound, key, rk, spec))
+        for req in exact_settings(study):
+            rk = run_key(EXACT_KIND, key, None, req, __version__)
+            points.append(Point(len(points), params, None, key, rk, spec, EXACT_KIND, req))
     return points
 
 
@@ -301,17 +408,22 @@ def solve_point(task: dict) -> dict:
     ``task`` has ``instance`` (an InstanceSpec), ``params``, ``bound`` and ``settings``
     (:func:`solver_settings`).  Returns a dict with ``ok``; on success ``result``
     (``SolveResult.to_dict()``), ``certificate`` (or ``None``); on failure ``error``;
-    always ``time_total`` (s) and ``versions``.
+    always ``time_total`` (s) and ``versions``.  A task with ``kind == "exact"`` carries the
+    request (one entry of :func:`exact_settings`) as ``settings`` and returns ``exact``
+    (``ExactResult.to_dict()``) instead of ``result``.
     """
     t0 = time.perf_counter()
     try:
         from .instance import build_instance
-        from .solve import solve
         s = task["settings"]
         f = build_instance(task["instance"], task["params"])
-        res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
-                    method=s["method"], **s["options"])
-        out = {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
+        if task.get("kind") == EXACT_KIND:
+            out = {"ok": True, "exact": _solve_exact(f, s).to_dict()}
+        else:
+            from .solve import solve
+            res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
+                        method=s["method"], **s["options"])
+            out = {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
     except Exception as err:  # a failing point is data, recorded by the parent
         tb = traceback.format_exception_only(type(err), err)[-1].strip()
         out = {"ok": False, "error": tb}
@@ -320,12 +432,22 @@ def solve_point(task: dict) -> dict:
     return out
 
 
+def _solve_exact(f, s: dict):
+    from .exact import exact_success, least_queries
+    kw = dict(solver=s["solver"], tol=s["tol"], use_symmetry=s["symmetry"])
+    if s.get("queries") is not None:
+        return exact_success(f, int(s["queries"]), **kw)
+    return least_queries(f, s["error"], max_queries=s.get("max_queries"), decision_tol=s["decision_tol"], **kw)
+
+
 def _safe(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.=-]+", "_", text)[:80]
 
 
 def _record(store: Store, study: StudySpec, point: Point, out: dict) -> StoredRow:
     """Write the certificate (temp file, then rename) and then the row (one transaction)."""
+    if point.kind == EXACT_KIND:
+        return _record_exact(store, study, point, out)
     from .certificate import save_certificate
     cert_path = None
     common = dict(kind=KIND, spec_key=point.spec_key, spec=point.spec, params=point.params, bound=point.bound,
@@ -351,6 +473,24 @@ def _record(store: Store, study: StudySpec, point: Point, out: dict) -> StoredRo
     row = make_row(point.run_key, status=res["status"], message=res.get("message"), lower=res.get("lower"),
                    upper=res.get("upper"), objective=res.get("objective"), domain_size=res.get("domain_size"),
                    values=values, time_solve=solver.get("time"), certificate=cert_path, **common)
+    store.put(row)
+    return row
+
+
+def _record_exact(store: Store, study: StudySpec, point: Point, out: dict) -> StoredRow:
+    """The row of an exact point: lower/upper = verified achievable success / verified upper bound."""
+    common = dict(kind=EXACT_KIND, spec_key=point.spec_key, spec=point.spec, params=point.params, bound=None,
+                  study=study.name, solver=dict(point.request or {}), versions=out.get("versions", {}),
+                  time_total=out.get("time_total"))
+    if not out.get("ok"):
+        row = make_row(point.run_key, status=ERROR_STATUS, message="the computation raised an exception",
+                       error=str(out.get("error", "unknown error")), **common)
+    else:
+        d = out["exact"]
+        row = make_row(point.run_key, status=d["status"], message=d.get("message"),
+                       lower=d.get("success_probability"), upper=d.get("upper_bound"), objective=d.get("objective"),
+                       domain_size=d.get("domain_size"), values=d, time_solve=(d.get("solver") or {}).get("time"),
+                       **common)
     store.put(row)
     return row
 
@@ -426,7 +566,8 @@ def run_study(study: StudySpec, *, store: Store | None = None, jobs: int = 1, sc
         skipped = len(pts) - len(todo)
         progress.start(len(todo), skipped)
         settings = solver_settings(study)
-        tasks = [(p, {"instance": study.instance, "params": p.params, "bound": p.bound, "settings": settings})
+        tasks = [(p, {"instance": study.instance, "params": p.params, "bound": p.bound, "kind": p.kind,
+                      "settings": settings if p.kind != EXACT_KIND else dict(p.request or {})})
                  for p in todo]
         rows = []
 

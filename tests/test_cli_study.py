@@ -166,3 +166,63 @@ def test_sigkill_real_study_then_resume(tmp_path):
         rows = st.rows()
     assert sorted(r.params["T"] for r in rows) == list(range(3, 15))
     assert {r.run_key: r.created for r in killed}.items() <= {r.run_key: r.created for r in rows}.items()
+
+
+def _tiny_exact_study(tmp_path):
+    """instances/studies/exact_small.toml cut down to T = 3..4, one query count and ε = 0.1 up to t = 2."""
+    here = os.path.join(os.path.dirname(__file__), "..", "instances", "studies", "exact_small.toml")
+    text = open(here).read()
+    for old, new in (("T = { from = 3, to = 5 }", "T = { from = 3, to = 4 }"),
+                     ("exact = { queries = [1, 2], error = 0.1, max_queries = 4 }",
+                      "exact = { queries = [1], error = 0.1, max_queries = 2 }"),
+                     ("bootstrap = 50", "bootstrap = 0")):
+        assert old in text, old
+        text = text.replace(old, new)
+    p = tmp_path / "exact_tiny.toml"
+    p.write_text(text)
+    return p
+
+
+def test_exact_study_end_to_end(tmp_path, monkeypatch, capsys):
+    """Tiny exact_small study: rows of kind "exact" hold ExactResult.to_dict(), and the report's check
+    column matches t >= ((1 - 2 sqrt(ε(1-ε)))/2)·ADV± recomputed here from the stored numbers ("Negative
+    weights make adversaries stronger", 2007, arXiv:quant-ph/0611054)."""
+    monkeypatch.chdir(tmp_path)
+    p = _tiny_exact_study(tmp_path)
+    assert main(["study", str(p), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "6 point(s); 0 already stored, 6 solved now, 0 failed now" in out
+    assert "exact points: 4; adversary check t >= (1 - 2 sqrt(ε(1-ε)))/2 · ADV±: 4 pass, 0 fail, 0 n/a" in out
+    with Store("studies/exact_small.sqlite", readonly=True) as st:
+        adv = {r.params["T"]: r for r in st.rows(kind="adversary")}
+        exact = st.rows(kind="exact")
+    assert sorted(adv) == [3, 4] and len(exact) == 4
+    section = (tmp_path / "reports" / "exact_small" / "summary.md").read_text().split("## Exact t-query")[1]
+    for r in exact:
+        T = r.params["T"]
+        assert r.bound is None and r.success and r.values["kind"] == "exact"
+        assert r.lower == r.values["success_probability"] and r.upper == r.values["upper_bound"]
+        assert r.lower <= r.upper + 1e-12 and r.solver["solver"] == "CLARABEL"
+        line = next(x for x in section.splitlines() if x.startswith(f"| {T} | {adv[T].domain_size} | "))
+        cells = [c.strip() for c in line.strip("|").split("|")]
+        assert cells[2] == f"{adv[T].lower:.6f}" and cells[3] == f"{adv[T].upper:.6f}"
+        if r.solver.get("queries") == 1:
+            # zero queries succeed with probability at most 1/2 on a function with both outputs
+            # (common knowledge), and one query is an algorithm too, so p lies in [1/2, 1]
+            assert 0.5 <= r.lower <= 1.0
+            t, eps = 1, 1 - r.lower
+            assert cells[4] == f"[{r.lower:.6f}, {r.upper:.6f}]"
+            check = cells[5]
+        else:
+            assert r.values["target_error"] == 0.1 and r.values["reached"] is True
+            t, eps = r.values["queries"], 0.1
+            assert t >= 1 and r.lower >= 0.9 - 1e-4  # t = 0 gives at most 1/2 (as above)
+            assert cells[6] == str(t)
+            check = cells[7]
+        need = (1 - 2 * math.sqrt(eps * (1 - eps))) / 2 * adv[T].lower
+        verdict, rel = ("pass", "≥") if t >= need else ("fail", "<")
+        assert check == f"{verdict}: {t} {rel} {need:.4f} (ε = {eps:.4f})"
+        assert verdict == "pass"  # the adversary theorem (same paper) must hold for verified numbers
+    assert os.path.exists(tmp_path / "reports" / "exact_small" / "exact_vs_T.png")
+    assert main(["study", str(p), "--quiet", "--no-report"]) == 0
+    assert "6 already stored, 0 solved now" in capsys.readouterr().out

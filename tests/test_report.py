@@ -142,3 +142,108 @@ def test_too_few_points_not_fitted(tmp_path):
                             bound="general", status="optimal", lower=np.sqrt(T), upper=np.sqrt(T)))
     files = write_report(p, out=tmp_path / "rep")
     assert "not fitted: 2 point(s)" in open(files.summary).read()
+
+
+EXACT_META = dict(META, series=None, growth="n", grid={"n": [2, 3, 16]},
+                  exact={"queries": [1, 2], "error": 0.1, "max_queries": 1, "solver": "CLARABEL", "tol": 1e-8,
+                         "decision_tol": 1e-4, "symmetry": True})
+
+
+def _exact_row(key, n, request, status="optimal", **values):
+    """An exact row as advbound.study stores it: lower/upper = verified success / upper bound."""
+    if status == "failed":
+        return make_row(key, kind="exact", spec_key=str(n), spec={}, params={"n": n}, status="failed",
+                        error="SolverError: synthetic", solver=request)
+    p = values.get("success_probability")
+    return make_row(key, kind="exact", spec_key=str(n), spec={}, params={"n": n}, status=status, lower=p,
+                    upper=values.get("upper_bound"), domain_size=2 ** n,
+                    values={"kind": "exact", "status": status, **values}, solver=request)
+
+
+def _fill_exact(path):
+    """OR_n rows with ADV±(OR_n) = sqrt(n) (common knowledge), plus exact rows.
+
+    n = 2, t = 1: success 9/10 (docs/exact.md: achievable by the derivation in tests/test_exact.py,
+    optimal from memory); n = 3: made-up success 0.45 (<= 1/2, no check possible) and ε = 0.1
+    not reached with max_queries = 1; n = 16: made-up, inconsistent success 0.999999 with one query,
+    which the check must flag (ADV± = 4 asks for t >= 1.996).
+    """
+    t1 = {"queries": 1, "solver": "CLARABEL", "tol": 1e-8, "symmetry": True}
+    t2 = dict(t1, queries=2)
+    eps = {"error": 0.1, "max_queries": 1, "decision_tol": 1e-4, "solver": "CLARABEL", "tol": 1e-8,
+           "symmetry": True}
+    with Store(path) as st:
+        st.set_meta("study", EXACT_META)
+        for n in (2, 3, 16):
+            st.put(make_row(f"a{n}", kind="adversary", spec_key=str(n), spec={}, params={"n": n}, bound="general",
+                            status="optimal", lower=math.sqrt(n), upper=math.sqrt(n) + 1e-8, domain_size=2 ** n))
+        st.put(_exact_row("e2", 2, t1, queries=1, success_probability=0.9, upper_bound=0.9 + 1e-7))
+        st.put(_exact_row("f2", 2, t2, status="failed"))
+        st.put(_exact_row("g2", 2, eps, queries=1, success_probability=0.9, upper_bound=0.9 + 1e-7,
+                          target_error=0.1, reached=True))
+        st.put(_exact_row("e3", 3, t1, queries=1, success_probability=0.45, upper_bound=0.45 + 1e-7))
+        st.put(_exact_row("g3", 3, eps, status="inaccurate", queries=1, success_probability=0.45,
+                          upper_bound=0.45 + 1e-7, target_error=0.1, reached=False))
+        st.put(_exact_row("e16", 16, t1, queries=1, success_probability=0.999999, upper_bound=1.0))
+
+
+def test_adversary_check_values():
+    """factor(0) = 1/2 and factor(1/2) = 0 (from the formula); OR_2 with one query at success 9/10:
+    ε = 1/10, factor = (1 - 2·0.3)/2 = 0.2, so t >= 0.2·sqrt(2) = 0.28284 ("Negative weights make
+    adversaries stronger", 2007, arXiv:quant-ph/0611054; ADV±(OR_2) = sqrt(2), common knowledge)."""
+    from advbound.report import adversary_check, adversary_factor
+    assert adversary_factor(0.0) == 0.5 and adversary_factor(0.5) == 0.0
+    eps, need, verdict = adversary_check(1, math.sqrt(2), success=0.9)
+    assert eps == pytest.approx(0.1) and need == pytest.approx(0.2 * math.sqrt(2)) and verdict == "pass"
+    assert adversary_check(0, math.sqrt(2), error=0.1, reached=True)[2] == "fail"  # 0 < 0.28284
+    assert adversary_check(1, 2.0, success=0.5) == (None, None, "n/a")
+    assert adversary_check(None, 2.0, error=0.1, reached=False)[2] == "n/a"
+    assert adversary_check(1, None, success=0.9)[2] == "n/a"
+
+
+def test_exact_table_and_figure(tmp_path):
+    """Exact rows appear next to ADV± with the right check per point, in Markdown, LaTeX and exact.json."""
+    from matplotlib.image import imread
+    p = tmp_path / "s.sqlite"
+    _fill_exact(p)
+    files = write_report(p, out=tmp_path / "rep")
+    assert {os.path.basename(f) for f in files.figures if f.endswith(".png")} == {
+        "bound_vs_T.png", "ratios.png", "residuals.png", "exact_vs_T.png"}
+    assert imread(str(tmp_path / "rep" / "exact_vs_T.png")).shape[1] > 100
+    summary = open(files.summary).read()
+    section = summary.split("## Exact t-query points")[1]
+    row = {n: next(line for line in section.splitlines() if line.startswith(f"| {n} | {2 ** n} |"))
+           for n in (2, 3, 16)}
+    need2 = 0.2 * math.sqrt(2)  # see test_adversary_check_values
+    assert f"| [0.900000, 0.900000] | pass: 1 ≥ {need2:.4f} (ε = 0.1000) | failed | n/a |" in row[2]
+    assert row[2].endswith(f"| 1 | pass: 1 ≥ {need2:.4f} (ε = 0.1000) |")
+    assert "| n/a (p ≤ 1/2) |" in row[3] and row[3].endswith("| > 1 | n/a (not reached) |")
+    # n = 16: ε = 1e-6, (1 - 2 sqrt(ε(1-ε)))/2 · 4 = 2 - 4·sqrt(1e-6 - 1e-12) ≈ 1.996
+    need16 = 2 - 4 * math.sqrt(1e-6 * (1 - 1e-6))
+    assert f"| fail: 1 < {need16:.4f} (ε = 0.0000) | -- | -- | -- | -- |" in row[16]
+    assert "Checks: 2 pass, 1 fail, 3 n/a." in summary  # missing cells (--) are not checks
+    tex = open(tmp_path / "rep" / "table_exact.tex").read()
+    _check_tabular(tex)
+    assert rf"fail ($1 < {need16:.4f}$)" in tex and r"$>1$" in tex
+    ex = json.loads(open(tmp_path / "rep" / "exact.json").read())
+    assert ex["columns"] == ["t=1", "t=2", "eps=0.1"]
+    assert [e and e["check"] for e in ex["points"][0]["entries"]] == ["pass", "n/a", "pass"]
+    prov = json.loads(open(files.provenance).read())
+    assert len(prov["exact_points"]) == 6 and len(prov["exact_settings"]) == 3
+    assert files.data[-1].endswith("fits.json")
+
+
+def test_exact_latex_compiles_when_pdflatex_exists(tmp_path):
+    """The exact table compiles with pdflatex and booktabs (skipped when pdflatex is absent)."""
+    if shutil.which("pdflatex") is None:
+        pytest.skip("pdflatex not installed; test_exact_table_and_figure checks the structure")
+    from advbound.report import collect_exact, latex_exact_table
+    p = tmp_path / "s.sqlite"
+    _fill_exact(p)
+    with Store(p, readonly=True) as st:
+        cols, pts = collect_exact(st)
+    (tmp_path / "doc.tex").write_text("\\documentclass{article}\\usepackage{booktabs}\\begin{document}\n\\tiny\n"
+                                      + latex_exact_table(cols, pts, EXACT_META) + "\\end{document}\n")
+    r = subprocess.run(["pdflatex", "-interaction=nonstopmode", "doc.tex"], cwd=tmp_path, capture_output=True,
+                       timeout=60)
+    assert r.returncode == 0, r.stdout[-2000:]

@@ -261,3 +261,91 @@ def test_load_study_rejects(tmp_path, table, where):
     p = _write(tmp_path, table)
     with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\].*{where}"):
         load_study(p)
+
+
+def fake_exact_runner(task):
+    """Pretend exact solve: search among N = 4 items, t queries succeed with sin^2((2t+1)·arcsin(1/2))
+    ("Grover's quantum searching algorithm is optimal", 1997, arXiv:quant-ph/9711070): 1/4, 1, ...;
+    adversary tasks go to fake_runner."""
+    if task.get("kind") != "exact":
+        return fake_runner(task)
+    s = task["settings"]
+    if s.get("queries") == 2 and not os.environ.get("ADVBOUND_TEST_HEAL"):
+        return {"ok": False, "error": "SolverError: synthetic exact failure", "time_total": 0.0, "versions": {}}
+    t = s.get("queries", 1)
+    p = min(1.0, math.sin((2 * t + 1) * math.asin(0.5)) ** 2)
+    d = {"kind": "exact", "status": "optimal", "message": "ok", "queries": t, "success_probability": p,
+         "upper_bound": p + 1e-9, "objective": p, "domain_size": 4, "target_error": s.get("error"),
+         "reached": None if s.get("error") is None else True, "solver": {"name": "fake", "time": 0.01}}
+    return {"ok": True, "exact": d, "time_total": 0.01, "versions": {"advbound": "x"}}
+
+
+_EXACT = {"queries": (1, 2), "error": 0.1, "max_queries": 3, "solver": "CLARABEL", "tol": 1e-8,
+          "decision_tol": 1e-4, "symmetry": True}
+
+
+def test_plan_with_exact_points(tmp_path):
+    """Each grid point gets its bounds, then one exact point per t and one per ε, all with distinct keys."""
+    st = _study(tmp_path, exact=_EXACT)
+    pts = plan(st, fake_api({"T": [4, 5]}))
+    assert [p.label for p in pts[:4]] == ["T=4 general", "T=4 exact t=1", "T=4 exact t=2", "T=4 exact eps=0.1"]
+    assert [p.kind for p in pts] == ["adversary", "exact", "exact", "exact"] * 2
+    assert len({p.run_key for p in pts}) == 8
+    assert pts[3].request == {"error": 0.1, "max_queries": 3, "decision_tol": 1e-4, "solver": "CLARABEL",
+                              "tol": 1e-8, "symmetry": True}
+    other = plan(_study(tmp_path, exact=dict(_EXACT, tol=1e-6)), fake_api({"T": [4, 5]}))
+    assert {p.run_key for p in pts if p.kind == "adversary"} == {p.run_key for p in other if p.kind == "adversary"}
+    assert not {p.run_key for p in pts if p.kind == "exact"} & {p.run_key for p in other}
+
+
+def test_exact_rows_stored_failed_and_retried(tmp_path, monkeypatch):
+    """Exact rows have kind "exact", lower/upper = verified success / upper bound, the result dict in
+    values; a failing exact point is stored, skipped on rerun and recomputed only with retry_failed."""
+    st = _study(tmp_path, exact=_EXACT)
+    api = fake_api({"T": [4]})
+    r1 = run_study(st, runner=fake_exact_runner, api=api)
+    assert (r1.planned, r1.solved, r1.failed) == (4, 3, 1)
+    with Store(st.store) as s:
+        ex = {(r.solver.get("queries"), r.solver.get("error")): r for r in s.rows(kind="exact")}
+        assert s.rows(kind="adversary")[0].bound == "general"
+    one = ex[(1, None)]
+    assert one.bound is None and one.status == "optimal" and one.values["kind"] == "exact"
+    assert one.lower == pytest.approx(1.0) and one.upper == pytest.approx(1.0 + 1e-9)  # Grover, N = 4, t = 1
+    assert one.lower == one.values["success_probability"] and one.upper == one.values["upper_bound"]
+    assert ex[(None, 0.1)].values["target_error"] == 0.1
+    assert ex[(2, None)].failed and "synthetic exact failure" in ex[(2, None)].error
+    monkeypatch.setenv("ADVBOUND_TEST_HEAL", "1")
+    assert (run_study(st, runner=fake_exact_runner, api=api).solved) == 0
+    r3 = run_study(st, runner=fake_exact_runner, api=api, retry_failed=True)
+    assert (r3.solved, r3.failed, r3.skipped) == (1, 0, 3)
+    with Store(st.store) as s:
+        two = [r for r in s.rows(kind="exact") if r.solver.get("queries") == 2][0]
+        n = s.count()
+    # t = 2 for N = 4: sin^2(5·π/6) = 1/4 (same source as fake_exact_runner)
+    assert n == 4 and two.success and two.lower == pytest.approx(0.25)
+
+
+def test_load_study_exact(tmp_path):
+    """[study] exact is normalised (defaults filled) and yields 3 exact points per grid point."""
+    pytest.importorskip("advbound.instance")
+    p = _write(tmp_path, 'exact = { queries = [1, 2], error = 0.1, max_queries = 4 }\n')
+    st = load_study(p)
+    assert st.exact == dict(_EXACT, max_queries=4)
+    assert len(plan(st)) == 3 * 4
+    assert load_study(_write(tmp_path, 'exact = { queries = 2, solver = "SCS" }\n')).exact["queries"] == (2,)
+
+
+@pytest.mark.parametrize("table, where", [
+    ('exact = 3\n', "must be a table"),
+    ('exact = { colour = 1 }\n', "colour"),
+    ('exact = { queries = [-1] }\n', "queries"),
+    ('exact = { queries = [1], max_queries = 3 }\n', "max_queries"),
+    ('exact = { error = 1.5 }\n', "error"),
+    ('exact = { solver = "SCS" }\n', "queries"),
+])
+def test_load_study_rejects_exact(tmp_path, table, where):
+    """A bad [study] exact entry raises InvalidInstanceError naming the file and the key."""
+    pytest.importorskip("advbound.instance")
+    p = _write(tmp_path, table)
+    with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\] exact.*{where}"):
+        load_study(p)

@@ -31,9 +31,10 @@ def run(args) -> int:
     from advbound.report import write_report
 
     files = write_report(args.study, out=args.out, store=args.store, bootstrap=args.bootstrap, seed=args.seed)
-    from advbound.commands.study import _print_preferences
+    from advbound.commands.study import _print_exact, _print_preferences
     print(f"report written to {files.out}/")
     for p in files.all():
         print(f"  {p}")
     _print_preferences(files)
+    _print_exact(files)
     return 0

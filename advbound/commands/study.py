@@ -96,6 +96,22 @@ def _print_preferences(files) -> None:
                   f"{d['ranking'][0]})")
 
 
+def _print_exact(files) -> None:
+    import json
+    import os
+    path = next((d for d in files.data if os.path.basename(d) == "exact.json"), None)
+    if path is None:
+        return
+    points = json.loads(open(path).read())["points"]
+    checks = [e["check"] for p in points for e in p["entries"] if e is not None]
+    print(f"  exact points: {len(checks)}; adversary check t >= (1 - 2 sqrt(ε(1-ε)))/2 · ADV±: "
+          f"{checks.count('pass')} pass, {checks.count('fail')} fail, {checks.count('n/a')} n/a")
+
+
+def _request(req: dict) -> str:
+    return f"t={req['queries']}" if req.get("queries") is not None else f"eps={req.get('error')}"
+
+
 def run(args) -> int:
     """Handler of ``advbound study``; returns the exit code."""
     from advbound.errors import AdvboundError
@@ -120,7 +136,8 @@ def run(args) -> int:
           f"{summary.solved} solved now, {summary.failed} failed now; store {study.store}")
     for row in summary.rows:
         if row.failed:
-            print(f"  failed: {row.params} {row.bound}: {row.status}: {row.error or row.message}")
+            what = row.bound if row.kind != "exact" else f"exact {_request(row.solver)}"
+            print(f"  failed: {row.params} {what}: {row.status}: {row.error or row.message}")
     if kept and not args.retry_failed:
         print(f"  {len(kept)} point(s) are stored as failed; rerun with --retry-failed to recompute them")
     if not args.no_report:
@@ -132,4 +149,5 @@ def run(args) -> int:
         else:
             print(f"report: {files.summary}")
             _print_preferences(files)
+            _print_exact(files)
     return 1 if kept else 0

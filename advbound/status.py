@@ -18,6 +18,8 @@ __all__ = [
     "SUCCESS",
     "MESSAGES",
     "CVXPY_STATUS_MAP",
+    "SCS_STATUS_MAP",
+    "CLARABEL_STATUS_MAP",
     "from_cvxpy",
 ]
 
@@ -55,6 +57,17 @@ CVXPY_STATUS_MAP = {
     "infeasible_or_unbounded": FAILED,
     "solver_error": FAILED,
 }
+
+
+#: Raw SCS and Clarabel status words (when a solver is called without cvxpy) mapped to cvxpy's words;
+#: pass the result through :func:`from_cvxpy`.
+SCS_STATUS_MAP = {"solved": "optimal", "solved_inaccurate": "optimal_inaccurate", "infeasible": "infeasible",
+                  "infeasible_inaccurate": "infeasible_inaccurate", "unbounded": "unbounded",
+                  "unbounded_inaccurate": "unbounded_inaccurate"}
+CLARABEL_STATUS_MAP = {"Solved": "optimal", "AlmostSolved": "optimal_inaccurate", "MaxIterations": "user_limit",
+                       "MaxTime": "user_limit", "PrimalInfeasible": "infeasible",
+                       "AlmostPrimalInfeasible": "infeasible_inaccurate", "DualInfeasible": "unbounded",
+                          "AlmostDualInfeasible": "unbounded_inaccurate"}
 
 
 def from_cvxpy(status):

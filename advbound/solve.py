@@ -49,7 +49,7 @@ METHODS = ("dense",) + tuple(_DISPATCH)
 _SUPPORT_THRESHOLDS = (1e-12, 1e-9, 1e-6)
 
 
-def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float = 1e-7,
+def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float | None = None,
           max_iters: int | None = None, verbose: bool = False, with_dual: bool = True, method: str = "dense",
           dual_source: str = "multipliers", repair_tol: float = 1e-2, **options) -> SolveResult:
     """Solve the adversary program of ``f`` and return verified bounds.
@@ -61,8 +61,9 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     bound : {"general", "positive"}
         ADV± (negative weights allowed) or ADV (non-negative weights).
     solver : {"SCS", "CLARABEL"}
-    tol : float
-        Solver tolerance (see :func:`advbound.sdp.solve_formulation`).
+    tol : float, optional
+        Solver tolerance (see :func:`advbound.sdp.solve_formulation`); for ``method="factored"`` the
+        target relative gap between the verified bounds.  Default: 1e-7, or 1e-4 for ``"factored"``.
     max_iters : int, optional
         Solver iteration limit.
     verbose : bool
@@ -91,6 +92,8 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     SolverError
         When the solver is unsupported or not installed.
     """
+    if tol is None:
+        tol = 1e-4 if method == "factored" else 1e-7
     if method in _DISPATCH:
         modname, funcname = _DISPATCH[method]
         try:

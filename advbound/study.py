@@ -98,7 +98,7 @@ class StudySpec:
     bounds: tuple = ("general",)
     method: str = "dense"
     solver: str = "SCS"
-    tol: float = 1e-7
+    tol: float | None = None
     max_iters: int | None = None
     options: dict = dataclasses.field(default_factory=dict)
     store: str = ""
@@ -360,7 +360,7 @@ def exact_settings(study: StudySpec) -> list[dict]:
 
 def solver_settings(study: StudySpec) -> dict:
     """The settings that, with the instance hash, bound and version, identify a point."""
-    return {"method": study.method, "solver": study.solver, "tol": float(study.tol),
+    return {"method": study.method, "solver": study.solver, "tol": None if study.tol is None else float(study.tol),
             "max_iters": study.max_iters, "options": dict(sorted(study.options.items()))}
 
 

@@ -27,7 +27,8 @@ def register(subparsers) -> None:
     p.add_argument("--bound", choices=("general", "positive"), default="general",
                    help="general = ADV± (default), positive = ADV")
     p.add_argument("--solver", default="SCS", metavar="NAME", help="SCS (default) or CLARABEL")
-    p.add_argument("--tol", type=float, default=1e-7, metavar="X", help="solver tolerance (default 1e-7)")
+    p.add_argument("--tol", type=float, default=None, metavar="X",
+                   help="solver tolerance (default 1e-7; for --method factored the target relative gap, default 1e-4)")
     p.add_argument("--max-iters", type=int, default=None, metavar="N", help="solver iteration limit")
     p.add_argument("--method", default="dense", metavar="NAME",
                    help="dense (default), symmetric or factored")
@@ -56,7 +57,7 @@ def run(args) -> int:
     from advbound.errors import InvalidFunctionError
     from advbound.solve import solve
 
-    if not (args.tol > 0):
+    if args.tol is not None and not (args.tol > 0):
         raise InvalidFunctionError(f"--tol must be positive, got {args.tol}")
     if args.max_iters is not None and args.max_iters <= 0:
         raise InvalidFunctionError(f"--max-iters must be positive, got {args.max_iters}")

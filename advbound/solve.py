@@ -36,7 +36,7 @@ from .errors import InvalidFunctionError
 from .function import PartialFunction
 from .result import SolveResult
 
-__all__ = ["solve", "METHODS"]
+__all__ = ["solve", "check_solvable", "METHODS"]
 
 log = logging.getLogger("advbound")
 
@@ -47,6 +47,15 @@ METHODS = ("dense",) + tuple(_DISPATCH)
 
 #: Γ support thresholds tried by :func:`solve`; each gives a valid lower bound, the best is kept.
 _SUPPORT_THRESHOLDS = (1e-12, 1e-9, 1e-6)
+
+
+def check_solvable(f: PartialFunction, bound: str) -> None:
+    """Raise :class:`InvalidFunctionError` for an unknown ``bound`` or a constant ``f`` (bound 0, nothing to solve)."""
+    if bound not in ("general", "positive"):
+        raise InvalidFunctionError(f"bound {bound!r} is unknown; use 'general' or 'positive'")
+    if f.is_constant:
+        raise InvalidFunctionError(f"function is constant on its domain (every input gives {f.outputs[0]!r}): "
+                                   f"its adversary bound is 0")
 
 
 def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float | None = None,
@@ -95,6 +104,7 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     if tol is None:
         tol = 1e-4 if method == "factored" else 1e-7
     if method in _DISPATCH:
+        check_solvable(f, bound)
         modname, funcname = _DISPATCH[method]
         try:
             mod = importlib.import_module(modname)
@@ -108,11 +118,7 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
         return func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)
     if method != "dense":
         raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
-    if bound not in ("general", "positive"):
-        raise InvalidFunctionError(f"bound {bound!r} is unknown; use 'general' or 'positive'")
-    if f.is_constant:
-        raise InvalidFunctionError(f"function is constant on its domain (every input gives {f.outputs[0]!r}): "
-                                   f"its adversary bound is 0")
+    check_solvable(f, bound)
     from . import sdp
     from .verify import extract_gamma, verify_certificate
 

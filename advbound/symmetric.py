@@ -442,11 +442,9 @@ def formulate_symmetric(f: PartialFunction, bound: str = "general", group: Group
     (6, 3, 4, 1)
     """
     t0 = time.perf_counter()
-    if bound not in ("general", "positive"):
-        raise InvalidFunctionError(f"bound {bound!r} is unknown; use 'general' or 'positive'")
-    if f.is_constant:
-        raise InvalidFunctionError(f"function is constant on its domain (every input gives {f.outputs[0]!r}): "
-                                   f"its adversary bound is 0")
+    from .solve import check_solvable
+
+    check_solvable(f, bound)
     dom = domain(f)
     G = automorphism_group(f) if group is None else group
     g = G.function

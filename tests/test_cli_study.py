@@ -98,7 +98,7 @@ def test_default_study_is_found():
     assert path.name == "default.toml" and path.parent.name == "studies"
     st = load_study(path)
     assert st.name == "default" and st.series == "rows" and st.growth == "T"
-    assert len(plan(st)) == len(st.bounds) * 10
+    assert len(plan(st)) == len(st.bounds) * 2 * 7        # rows in {2, 3}, T = 4..10
 
 
 def test_report_of_missing_store(tmp_path, monkeypatch, capsys):

@@ -37,7 +37,7 @@ from .store import Store, StoredRow
 
 __all__ = ["Series", "ReportFiles", "open_store", "collect_series", "fit_series", "write_report",
            "latex_results_table", "latex_fit_table", "ExactEntry", "ExactPoint", "collect_exact",
-           "adversary_factor", "adversary_check", "markdown_exact_table", "latex_exact_table", "CHECK_SLACK"]
+           "adversary_factor", "adversary_check", "markdown_exact_table", "latex_exact_table", "CHECK_SLACK", "FIT_MAX_GAP"]
 
 _KIND = "adversary"
 _EXACT_KIND = "exact"
@@ -147,8 +147,10 @@ def fit_series(series: list[Series], meta: dict | None = None, *, bootstrap: int
     offsets = tuple(bool(o) for o in (meta.get("offsets") or (False, True)))
     bootstrap = int(meta.get("bootstrap", 200) if bootstrap is None else bootstrap)
     seed = int(meta.get("seed", 0) if seed is None else seed)
+    max_gap = float(meta.get("fit_max_gap", FIT_MAX_GAP))
     out = {}
     for s in series:
+        s = _fit_points(s, max_gap)
         if len(s.T) < 3:
             out[s.label] = f"not fitted: {len(s.T)} point(s), at least 3 needed"
         elif min(s.T) <= 1:
@@ -159,6 +161,22 @@ def fit_series(series: list[Series], meta: dict | None = None, *, bootstrap: int
             out[s.label] = compare_models(s.T, s.lower, laws, offsets, bootstrap=bootstrap, seed=seed,
                                           variable=str(meta.get("growth") or "T"))
     return out
+
+
+#: Points whose verified relative gap (upper - lower) / upper exceeds this are shown in tables and
+#: figures but left out of fits: a loose lower bound would bend the fitted law.  Points without an
+#: upper bound (lower-bound-only methods) are kept.
+FIT_MAX_GAP = 1e-3
+
+
+def _fit_points(s: Series, max_gap: float) -> Series:
+    keep = [i for i, (lo, up) in enumerate(zip(s.lower, s.upper))
+            if up is None or (up - lo) <= max_gap * max(abs(up), 1e-300)]
+    if len(keep) == len(s.T):
+        return s
+    pick = lambda seq: tuple(seq[i] for i in keep)  # noqa: E731
+    return dataclasses.replace(s, T=pick(s.T), lower=pick(s.lower), upper=pick(s.upper),
+                               domain_size=pick(s.domain_size), rows=pick(s.rows))
 
 
 # -- LaTeX ---------------------------------------------------------------------------------
@@ -837,7 +855,8 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
     w("## Growth-law fits (verified lower bounds)\n\n")
     w("Least squares with relative weights; parameters ± standard errors from the Jacobian; "
       "bracketed intervals are seeded residual-bootstrap 95% intervals. Ranked by the information "
-      "criterion named below; Akaike weights.\n\n")
+      "criterion named below; Akaike weights. Points whose verified relative gap exceeds "
+      f"{FIT_MAX_GAP:g} stay in the tables above but are left out of the fits.\n\n")
     for label, cmp in fits.items():
         w(f"### {label}\n\n")
         if isinstance(cmp, str):

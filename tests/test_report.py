@@ -247,3 +247,16 @@ def test_exact_latex_compiles_when_pdflatex_exists(tmp_path):
     r = subprocess.run(["pdflatex", "-interaction=nonstopmode", "doc.tex"], cwd=tmp_path, capture_output=True,
                        timeout=60)
     assert r.returncode == 0, r.stdout[-2000:]
+
+
+def test_loose_points_left_out_of_fits():
+    """A point whose verified gap is wide (a loose lower bound) is not fitted; tight points are."""
+    import math as _m
+
+    from advbound.report import FIT_MAX_GAP, Series, _fit_points
+    T = (4.0, 8.0, 16.0, 32.0)
+    lower = tuple(_m.sqrt(t) for t in T)
+    upper = (lower[0], lower[1] * (1 + FIT_MAX_GAP / 10), lower[2] * 1.2, None)   # third is loose
+    s = Series("general", None, T, lower, upper, (1, 2, 3, 4), ("a", "b", "c", "d"))
+    kept = _fit_points(s, FIT_MAX_GAP)
+    assert kept.T == (4.0, 8.0, 32.0) and kept.rows == ("a", "b", "d")

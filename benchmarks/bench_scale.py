@@ -55,31 +55,11 @@ def _child(kind: str, n: int, T: int, limit: float, tol: float) -> None:
 
 
 def _dense(f) -> dict:
-    """The dense reference: advbound.solve (method="dense", CLARABEL) when present, else a plain cvxpy SDP."""
-    try:
-        from advbound.solve import solve
-    except ImportError:
-        solve = None
-    if solve is not None:
-        r = solve(f, solver="CLARABEL", method="dense")
-        return {"value": r.objective, "lower": r.lower, "upper": r.upper, "status": r.status}
-    import cvxpy as cp
-    from advbound.domain import domain
+    """The dense reference: advbound.solve with method="dense" and CLARABEL."""
+    from advbound.solve import solve
 
-    d = domain(f)
-    i0, i1 = d.part(0), d.part(1)
-    s0, s1 = d.symbols[i0], d.symbols[i1]
-    w = cp.Variable((len(i0), len(i1)))
-    r0, r1 = cp.Variable(len(i0), nonneg=True), cp.Variable(len(i1), nonneg=True)
-    cons = [cp.sum(r0) + cp.sum(r1) == 1]
-    for j in range(d.n):
-        m = (s0[:, j][:, None] != s1[:, j][None, :]).astype(float)
-        if m.any():
-            b = cp.multiply(m, w)
-            cons.append(cp.bmat([[d.costs[j] * cp.diag(r0), -b], [-b.T, d.costs[j] * cp.diag(r1)]]) >> 0)
-    p = cp.Problem(cp.Maximize(2 * cp.sum(w)), cons)
-    p.solve(solver="CLARABEL")
-    return {"value": p.value, "status": p.status}
+    r = solve(f, solver="CLARABEL", method="dense")
+    return {"value": r.objective, "lower": r.lower, "upper": r.upper, "status": r.status}
 
 
 class _Popen(subprocess.Popen):

@@ -22,6 +22,7 @@ from __future__ import annotations
 import itertools
 import logging
 import math
+import os
 from collections import Counter
 from typing import Callable, Hashable, Sequence
 
@@ -48,12 +49,105 @@ __all__ = [
     "time_profiles",
     "is_automorphism",
     "block_generators",
+    "usable_row_lengths",
+    "check_domain_size",
+    "MAX_INPUTS",
 ]
 
 log = logging.getLogger("advbound")
 
 #: Largest domain ``from_predicate`` will enumerate (``|alphabet| ** n``).
 MAX_ENUMERATION = 1 << 22
+
+#: Default ``max_inputs`` of the builders that can make large domains (:func:`compose`,
+#: :func:`position_search_row`, :func:`position_search_composition`): the largest number of
+#: inputs they materialise.  The environment variable ``ADVBOUND_MAX_INPUTS`` replaces it
+#: (a number, or ``none`` for no limit); an explicit ``max_inputs=`` argument wins over both.
+MAX_INPUTS = 5_000_000
+
+#: Bytes per input assumed by the memory estimate, on top of one byte per position
+#: (a Python ``str`` header and its slot in the inputs tuple; the output labels are shared).
+_BYTES_PER_INPUT = 64
+
+
+def _env_max_inputs() -> int | None:
+    raw = os.environ.get("ADVBOUND_MAX_INPUTS")
+    if raw is None or not raw.strip():
+        return MAX_INPUTS
+    if raw.strip().lower() == "none":
+        return None
+    try:
+        v = int(raw.strip().replace("_", ""))
+    except ValueError:
+        raise InvalidFunctionError(f"ADVBOUND_MAX_INPUTS={raw!r}: expected a whole number or 'none'") from None
+    if v < 1:
+        raise InvalidFunctionError(f"ADVBOUND_MAX_INPUTS={raw!r}: must be >= 1 (or 'none')")
+    return v
+
+
+def _resolve_max_inputs(max_inputs) -> int | None:
+    if isinstance(max_inputs, str) and max_inputs == "default":
+        return _env_max_inputs()
+    if max_inputs is None:
+        return None
+    return _check_int(max_inputs, "max_inputs", 1)
+
+
+def _available_memory() -> int | None:
+    """Bytes of memory available to a new allocation (``MemAvailable``), or ``None`` when unknown."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _fmt_bytes(b: float) -> str:
+    for unit, k in (("TB", 1 << 40), ("GB", 1 << 30), ("MB", 1 << 20), ("kB", 1 << 10)):
+        if b >= k:
+            v = b / k
+            return f"{v:,.0f} {unit}" if v >= 1000 else f"{v:.3g} {unit}"
+    return f"{int(b)} bytes"
+
+
+def check_domain_size(count: int, n_positions: int, max_inputs: int | None | str = "default",
+                      what: str = "the function") -> None:
+    """Refuse, before anything is built, a domain of ``count`` inputs on ``n_positions`` positions
+    that is too large.
+
+    Too large means more than ``max_inputs`` inputs (default :data:`MAX_INPUTS`, or the
+    environment variable ``ADVBOUND_MAX_INPUTS``), or an estimated
+    ``count * (n_positions + 64)`` bytes beyond the memory this machine has available.
+    ``max_inputs=None`` turns both checks off.
+
+    Raises
+    ------
+    InvalidFunctionError
+        One line with the count, the memory estimate and how to raise the limit.
+
+    >>> check_domain_size(10 ** 9, 30, max_inputs=1000)
+    Traceback (most recent call last):
+    ...
+    advbound.errors.InvalidFunctionError: the function would have 1,000,000,000 inputs on 30 positions (about 87.5 GB), more than max_inputs = 1,000; raise the limit with max_inputs=N or the environment variable ADVBOUND_MAX_INPUTS=N (none: no limit)
+    """
+    limit = _resolve_max_inputs(max_inputs)
+    if limit is None:
+        return
+    need = count * (n_positions + _BYTES_PER_INPUT)
+    head = f"{what} would have {count:,} inputs on {n_positions:,} positions (about {_fmt_bytes(need)})"
+    how = "max_inputs=N or the environment variable ADVBOUND_MAX_INPUTS=N (none: no limit)"
+    if count > limit:
+        raise InvalidFunctionError(f"{head}, more than max_inputs = {limit:,}; raise the limit with {how}")
+    avail = _available_memory()
+    if avail is not None and need > avail:
+        raise InvalidFunctionError(f"{head}, more than the {_fmt_bytes(avail)} of memory available; "
+                                   "to try anyway, pass max_inputs=None or set ADVBOUND_MAX_INPUTS=none")
 
 
 def _check_int(value, name: str, lo: int = 0, hi: int | None = None) -> int:
@@ -232,17 +326,20 @@ def named_function(name: str, n: int, k: int | None = None) -> PartialFunction:
             "majority": majority_function}[key](n)
 
 
-def position_search_row(m: int) -> PartialFunction:
+def position_search_row(m: int, *, max_inputs: int | None | str = "default") -> PartialFunction:
     """A position-search row of length ``m``: alphabet ``('0', '1', '*')``, defined exactly on
     the ``2m`` strings with one symbol other than ``*``; the value is that symbol.
 
     The 0/1 flip on every position (with the outputs swapped) is handed over as a symmetry.
+    A row too large to hold (see :func:`check_domain_size`, ``max_inputs``) is refused before
+    any string is made.
 
     >>> f = position_search_row(3)
     >>> f.size, f.inputs[:3], f.output_counts()
     (6, ('0**', '1**', '*0*'), {'0': 3, '1': 3})
     """
     m = _check_int(m, "row length m", 1)
+    check_domain_size(2 * m, m, max_inputs, what=f"a position-search row of length {m:,}")
     inputs, outputs = [], []
     for k in range(m):  # non-star earlier means lexicographically smaller: this is canonical order
         for v in "01":
@@ -270,7 +367,8 @@ def _outer_is_symmetric(outer: PartialFunction) -> bool:
 
 def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFunction], *,
             time_model: TimeModel | Sequence[TimeModel] | None = None, budget: Budget | None = None,
-            max_ones: int | None = None, description: str | None = None) -> PartialFunction:
+            max_ones: int | None = None, description: str | None = None,
+            max_inputs: int | None | str = "default") -> PartialFunction:
     """The composition ``g(h_1(x_1), ..., h_n(x_n))``, optionally restricted by a time budget.
 
     Parameters
@@ -289,6 +387,9 @@ def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFu
         Keep only inputs with at most this many rows whose inner value is ``'1'``.
     description : str, optional
         Default: generated from the parts.
+    max_inputs : int, None or "default"
+        Refuse (before building) a composition with more inputs than this, or one that would
+        not fit in the available memory; see :func:`check_domain_size`.
 
     Returns
     -------
@@ -306,7 +407,9 @@ def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFu
     The restricted domain is enumerated directly: the allowed profiles first (see
     :meth:`Budget.allowed_profiles`), then a depth-first walk over the rows that only
     visits row inputs consistent with an allowed profile, with the outer domain and with
-    ``max_ones``.  The walk visits rows in canonical order, so no sorting is needed.
+    ``max_ones``.  The walk visits rows in canonical order, so no sorting is needed.  The
+    same walk, counting instead of building (memoised on the state it depends on), gives
+    the exact number of inputs first, so an oversized domain is refused before it exists.
 
     Examples
     --------
@@ -385,8 +488,18 @@ def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFu
             for d in range(n):
                 raw[d].setdefault(p[:d], set()).add(p[d])
         children = [{kp: frozenset(v) for kp, v in level.items()} for level in raw]
+    n_positions = sum(h.n for h in inners)
+    total = None
+    if outer.size == len(outer.alphabet) ** n:  # total outer: every row output combination is defined
+        total = _count_composed(rows, children, None, None, max_ones)
+        check_domain_size(total, n_positions, max_inputs, what="the composition")
     outer_map = dict(zip(outer.inputs, outer.outputs))
     outer_prefixes = [{x[:d] for x in outer.inputs} for d in range(n)]
+    if total is None:
+        total = _count_composed(rows, children, outer_map, outer_prefixes, max_ones)
+    if total == 0:
+        raise InvalidFunctionError("the composition is defined on no input (the restrictions exclude all)")
+    check_domain_size(total, n_positions, max_inputs, what="the composition")
 
     inputs: list[str] = []
     outputs: list[str] = []
@@ -481,6 +594,130 @@ def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFu
                            groups=tuple(groups), symmetries=symmetries, description=description)
 
 
+def _count_composed(rows, children, outer_map, outer_prefixes, max_ones) -> int:
+    """Number of inputs the walk of :func:`compose` emits, without building any string.
+
+    Row entries are grouped by what the walk looks at (profile key, inner output); the count
+    is memoised on (row, key prefix, outer prefix, ones so far).  ``outer_map=None`` means the
+    outer function is total, so the outer prefix never matters and is left out of the state.
+    """
+    n = len(rows)
+    groups = [sorted(Counter((key, o) for _r, o, key, _one in entries).items(), key=repr) for entries in rows]
+    memo: dict = {}
+
+    def count(i: int, kp: tuple, op: str, ones: int) -> int:
+        ck = (i, kp, op, ones)
+        got = memo.get(ck)
+        if got is not None:
+            return got
+        keys = children[i][kp] if children is not None else None
+        total = 0
+        for (key, o), mult in groups[i]:
+            if keys is not None and key not in keys:
+                continue
+            op2 = op + o if outer_map is not None else ""
+            ones2 = ones + (o == "1") if max_ones is not None else 0
+            if max_ones is not None and ones2 > max_ones:
+                continue
+            if i == n - 1:
+                if outer_map is None or op2 in outer_map:
+                    total += mult
+            elif outer_map is None or op2 in outer_prefixes[i + 1]:
+                total += mult * count(i + 1, kp + (key,) if children is not None else kp, op2, ones2)
+        memo[ck] = total
+        return total
+
+    return count(0, (), "", 0)
+
+
+def usable_row_lengths(lengths: Sequence[int | None], models: Sequence[TimeModel],
+                       budget: Budget) -> list[int | None]:
+    """The row lengths that suffice for a composition of position-search rows under ``budget``.
+
+    ``lengths[i]`` is the length of row ``i`` when it is a position-search row (``None`` for
+    any other row) and ``models[i]`` its time model.  A position ``k`` of row ``i`` can only be
+    non-star if some allowed profile has ``k_i = k``; every later position of that row is
+    ``*`` on the whole domain (dead), so shortening the row to its last usable position gives
+    the same domain without the dead trailing positions.  The result never cuts a usable
+    position: it uses only the budget and lower bounds on the other rows' times (the outer
+    function and ``max_ones`` are ignored), and leaves a row unchanged when nothing is known.
+
+    Rows of :meth:`TimeModel.power` (exponent > 0) and :meth:`TimeModel.positions` models are
+    shortened under a sum budget; rows with integer position keys under a listed-profiles
+    budget.  A row with no usable position is shortened to length 1 (the budget then
+    allows no profile, which :func:`compose` reports).
+
+    Examples
+    --------
+    Three rows with ``k_1 + k_2 + k_3 = 4`` need length ``4 - 2 = 2``, however long they are:
+
+    >>> usable_row_lengths([10 ** 8] * 3, [TimeModel.sqrt()] * 3, Budget.sum_squares(4))
+    [2, 2, 2]
+    """
+    lengths = list(lengths)
+    models = list(models)
+    if len(models) != len(lengths):
+        raise InvalidFunctionError(f"{len(models)} time models for {len(lengths)} rows")
+    out = list(lengths)
+    if budget.kind == "profiles":
+        for i, (m, tm) in enumerate(zip(lengths, models)):
+            if m is None or not tm.uses_positions:
+                continue
+            keys = ([v for p in budget.profiles for v in p] if budget.permutations
+                    else [p[i] for p in budget.profiles if len(p) == len(lengths)])
+            if keys and all(isinstance(v, int) and not isinstance(v, bool) for v in keys):
+                if tm.kind == "positions" and m > len(tm.times):
+                    continue  # keep the row: compose reports the positions without a time
+                out[i] = min(m, max(max(keys), 1))
+        return out
+    floor = [_min_square(tm, m) for m, tm in zip(lengths, models)]
+    slack = 1e-9 * max(abs(budget.T), 1.0)
+    for i, (m, tm) in enumerate(zip(lengths, models)):
+        if m is None:
+            continue
+        room = budget.T + budget.tolerance + slack - (sum(floor) - floor[i])
+        k = _last_usable(tm, m, room)
+        if k is not None:
+            out[i] = min(m, max(k, 1))
+    return out
+
+
+def _min_square(tm: TimeModel, m: int | None) -> float:
+    """A lower bound on ``t^2`` over the inputs of a row (0 when nothing better is known)."""
+    if tm.kind == "power":
+        if m is None or tm.alpha >= 0:
+            return 1.0 if m is not None else 0.0
+        return (float(m) ** tm.alpha) ** 2
+    if tm.kind == "positions":
+        ts = tm.times[:m] if m is not None else tm.times
+        return min(ts) ** 2
+    if tm.kind == "inputs":
+        return min(t for _x, t in tm.table) ** 2
+    return 0.0
+
+
+def _last_usable(tm: TimeModel, m: int, room: float) -> int | None:
+    """The last position ``k <= m`` of a row with ``t(k)^2 <= room``; ``None``: cannot tell."""
+    if tm.kind == "positions":
+        if m > len(tm.times):
+            return None  # compose reports the positions without a time
+        return max((k for k in range(1, m + 1) if tm.times[k - 1] ** 2 <= room), default=0)
+    if tm.kind != "power" or tm.alpha <= 0:
+        return None
+    if room < 1:
+        return 0
+    a = tm.alpha
+    try:
+        guess = math.floor(room ** (1.0 / (2.0 * a)))
+    except OverflowError:
+        return None
+    if guess >= m:
+        return m
+    # the float guess may be one off; t^2 is computed as compose computes it
+    fits = [k for k in (guess - 1, guess, guess + 1) if 1 <= k and (float(k) ** a) ** 2 <= room]
+    return max(fits, default=0)
+
+
 def _closed_under_permutations(profiles: set[tuple], n: int) -> bool:
     gens = [a.positions for a in block_generators(n, 1)]
     for p in profiles:
@@ -495,7 +732,8 @@ def _closed_under_permutations(profiles: set[tuple], n: int) -> bool:
 
 def position_search_composition(outer: str | PartialFunction, n: int, m: int | None, T: float, *,
                                 time: str | float = "sqrt", budget: str = "exact", max_ones: int | None = None,
-                                k: int | None = None, rtol: float = 1e-9) -> PartialFunction:
+                                k: int | None = None, rtol: float = 1e-9,
+                                max_inputs: int | None | str = "default") -> PartialFunction:
     """The main family: ``outer`` of ``n`` position-search rows of length ``m`` under a time budget.
 
     Parameters
@@ -518,6 +756,8 @@ def position_search_composition(outer: str | PartialFunction, n: int, m: int | N
         At most this many rows with value 1.
     k : int, optional
         Parameter of ``threshold``/``exact``.
+    max_inputs : int, None or "default"
+        Size limit, see :func:`check_domain_size`.
 
     Examples
     --------
@@ -546,7 +786,8 @@ def position_search_composition(outer: str | PartialFunction, n: int, m: int | N
     g = named_function(outer, n, k) if isinstance(outer, str) else outer
     if g.n != n:
         raise InvalidFunctionError(f"outer function has {g.n} positions, expected n = {n}")
-    return compose(g, position_search_row(m), time_model=tm, budget=b, max_ones=max_ones)
+    return compose(g, position_search_row(m, max_inputs=max_inputs), time_model=tm, budget=b, max_ones=max_ones,
+                   max_inputs=max_inputs)
 
 
 # ---------------------------------------------------------------------------------------------

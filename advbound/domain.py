@@ -22,7 +22,7 @@ import numpy as np
 
 from .function import PartialFunction
 
-__all__ = ["Domain", "domain"]
+__all__ = ["Domain", "domain", "symbol_dtype"]
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -33,8 +33,9 @@ class Domain:
     ----------
     function : PartialFunction
         The function these arrays describe.
-    symbols : ndarray of int8, shape (|D|, N)
-        ``symbols[i, j]`` is the alphabet index of ``inputs[i][j]``.
+    symbols : ndarray of int8, int16 or int32, shape (|D|, N)
+        ``symbols[i, j]`` is the alphabet index of ``inputs[i][j]``; the dtype is the
+        smallest signed one that holds every index (:func:`symbol_dtype`).
     output_index : ndarray of int, shape (|D|,)
         ``output_index[i]`` indexes ``function.labels``.
     costs : ndarray of float, shape (N,)
@@ -93,15 +94,41 @@ def domain(f: PartialFunction) -> Domain:
     return Domain(f, sym, out, costs)
 
 
+def symbol_dtype(n_symbols: int) -> np.dtype:
+    """The smallest signed integer dtype that holds the alphabet indices ``0 .. n_symbols - 1``.
+
+    >>> [symbol_dtype(k).name for k in (3, 128, 129, 40000)]
+    ['int8', 'int8', 'int16', 'int32']
+    """
+    top = max(int(n_symbols) - 1, 0)
+    for dt in (np.int8, np.int16, np.int32):
+        if top <= np.iinfo(dt).max:
+            return np.dtype(dt)
+    return np.dtype(np.int64)
+
+
+#: Text codec whose code units are the alphabet indices, per symbol dtype (see _symbol_array).
+_CODECS = {np.dtype(np.int8): ("latin-1", "<i1"), np.dtype(np.int16): ("utf-16-le", "<i2"),
+           np.dtype(np.int32): ("utf-32-le", "<i4")}
+
+
 def _symbol_array(f: PartialFunction) -> np.ndarray:
-    """``symbols[i, j]`` = alphabet index of ``f.inputs[i][j]``, built in C-speed chunks."""
-    if len(f.alphabet) > 127 or f.n == 0:
+    """``symbols[i, j]`` = alphabet index of ``f.inputs[i][j]``, built in C-speed chunks.
+
+    Each symbol is translated to the code point equal to its index; the codec of the symbol
+    dtype then writes exactly that number as one code unit (indices below 0xD800, so no
+    UTF-16 surrogates arise).
+    """
+    dt = symbol_dtype(len(f.alphabet))
+    codec = _CODECS.get(dt)
+    if codec is None or len(f.alphabet) > 0xD800 or f.n == 0:
         order = {s: i for i, s in enumerate(f.alphabet)}
-        return np.array([[order[c] for c in x] for x in f.inputs], dtype=np.int8).reshape(f.size, f.n)
+        return np.array([[order[c] for c in x] for x in f.inputs], dtype=dt).reshape(f.size, f.n)
+    encoding, unit = codec
     to_index = str.maketrans({s: chr(i) for i, s in enumerate(f.alphabet)})
-    sym = np.empty((f.size, f.n), dtype=np.int8)
-    step = max(1, (1 << 22) // f.n)  # about 4 MB of text per chunk
+    sym = np.empty((f.size, f.n), dtype=dt)
+    step = max(1, (1 << 22) // f.n)  # about 4 M symbols per chunk
     for a in range(0, f.size, step):
-        chunk = "".join(f.inputs[a:a + step]).translate(to_index).encode("latin-1")
-        sym[a:a + step] = np.frombuffer(chunk, dtype=np.int8).reshape(-1, f.n)
+        chunk = "".join(f.inputs[a:a + step]).translate(to_index).encode(encoding)
+        sym[a:a + step] = np.frombuffer(chunk, dtype=unit).reshape(-1, f.n)
     return sym

@@ -206,6 +206,22 @@ def _lsq(name, T, y, w, p0, max_nfev=4000):
                                   x_scale="jac", max_nfev=max_nfev)
 
 
+def _points(T, y) -> tuple[np.ndarray, np.ndarray]:
+    """``T`` and ``y`` as float arrays; every value must be a finite number."""
+    out = []
+    for label, v in (("T", T), ("y", y)):
+        try:
+            a = np.asarray(v, dtype=float)
+        except (TypeError, ValueError):
+            raise AdvboundError(f"fit: {label} holds a value that is not a number") from None
+        bad = ~np.isfinite(a)
+        if bad.any():
+            i = int(np.flatnonzero(bad.ravel())[0])
+            raise AdvboundError(f"fit: {label}[{i}] = {a.ravel()[i]} is not a finite number")
+        out.append(a)
+    return out[0], out[1]
+
+
 def fit_model(T, y, name: str, *, bootstrap: int = 200, seed: int | None = 0,
               weighting: str = "relative") -> FitResult:
     """Fit model ``name`` to the points ``(T, y)`` by least squares.
@@ -236,8 +252,7 @@ def fit_model(T, y, name: str, *, bootstrap: int = 200, seed: int | None = 0,
         relative weighting.
     """
     base, off = _split(name)
-    T = np.asarray(T, dtype=float)
-    y = np.asarray(y, dtype=float)
+    T, y = _points(T, y)
     if T.shape != y.shape or T.ndim != 1:
         raise AdvboundError(f"fit: T and y must be 1-d of equal length, got {T.shape} and {y.shape}")
     if LAWS[base][2] and np.any(T <= 1):
@@ -491,8 +506,9 @@ def compare_models(T, y, laws: Sequence[str] = ("sqrt", "sqrt_log", "power", "po
     criteria are then a rough guide.  A fit is evidence about growth on the fitted range, never
     a proof about larger T.
     """
-    T = np.asarray(T, dtype=float)
-    y = np.asarray(y, dtype=float)
+    T, y = _points(T, y)
+    if T.shape != y.shape or T.ndim != 1:
+        raise AdvboundError(f"fit: T and y must be 1-d of equal length, got {T.shape} and {y.shape}")
     order = np.argsort(T)
     T, y = T[order], y[order]
     if len(T) < 2:

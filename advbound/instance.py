@@ -31,7 +31,14 @@ Schema (see ``docs/instances.md`` for the full description)::
     T = { from = 4, to = 12 }          # or a list [4, 6, 8], or one value
 
 Expressions are numbers or strings over numbers, grid names, ``+ - * / // % **``,
-parentheses and ``min max sqrt log ceil floor abs``.
+parentheses and ``min max sqrt log ceil floor abs``; they are bounded in length, depth and
+the size of every number (:func:`evaluate`), so none can hang or overflow.
+
+Hostile input gets one line naming the file, the grid point (``f.toml [grid point T=2]``)
+and the key.  Files are UTF-8 (a byte-order mark is accepted) and size-limited; grids are
+walked lazily (:func:`iter_grid_points`) and limited to :data:`MAX_GRID_POINTS` points;
+position-search rows are cut to the positions the budget can use, and a domain too large
+for ``max_inputs`` or for the memory available is refused before it is built.
 
 >>> evaluate("min(T - 2, 5) * 2", {"T": 6})
 8
@@ -41,19 +48,21 @@ from __future__ import annotations
 
 import ast
 import dataclasses
+import functools
 import hashlib
 import itertools
 import json
 import logging
 import math
 import os
+import stat
 import tomllib
 from typing import Any, Mapping, Sequence
 
-from .builders import NAMED_FUNCTIONS, compose, named_function, position_search_row
+from .builders import NAMED_FUNCTIONS, compose, named_function, position_search_row, usable_row_lengths
 from .errors import AdvboundError, InvalidInstanceError
 from .function import PartialFunction
-from .tablefile import read_table
+from .tablefile import MAX_TABLE_BYTES, decode_text, parse_table, read_table, read_text
 from .timemodel import Budget, TimeModel
 
 __all__ = [
@@ -62,6 +71,9 @@ __all__ = [
     "load_instance",
     "parse_instance",
     "grid_points",
+    "iter_grid_points",
+    "grid_size",
+    "point_label",
     "resolved",
     "spec_key",
     "build_instance",
@@ -76,6 +88,11 @@ log = logging.getLogger("advbound")
 #: Version of the instance format; part of every :func:`spec_key`.
 FORMAT_VERSION = 1
 
+#: Largest instance file :func:`load_instance` reads (16 MiB).
+MAX_INSTANCE_BYTES = 1 << 24
+#: Largest number of grid points an instance file may have (the product of its grid lists).
+MAX_GRID_POINTS = 100_000
+
 _FUNCS = {"min": min, "max": max, "sqrt": math.sqrt, "log": math.log, "ceil": math.ceil,
           "floor": math.floor, "abs": abs}
 _BINOPS = {ast.Add: lambda a, b: a + b, ast.Sub: lambda a, b: a - b, ast.Mult: lambda a, b: a * b,
@@ -87,8 +104,77 @@ _INSTANCE_KEYS = ("name", "description", "outer", "rows", "inner", "row_length",
 # ---------------------------------------------------------------------------------------------
 # Expressions
 # ---------------------------------------------------------------------------------------------
+#: Limits of the expression language: longer, deeper or larger is refused with one line.
+MAX_EXPRESSION_CHARS = 1000
+MAX_EXPRESSION_DEPTH = 60
+#: Integers (inputs, intermediate results and the value) above ``2**MAX_INT_BITS`` (about 1.8e308,
+#: the float range) are refused, so no power or product can grow without bound.
+MAX_INT_BITS = 1024
+
+
+def _check_number(v, where: str, expr):
+    """``v`` if it is a finite real number of bounded size; otherwise one line naming ``where``."""
+    if isinstance(v, bool):
+        raise InvalidInstanceError(f"{where}: {expr!r} gives a truth value, not a number")
+    if isinstance(v, int):
+        if v.bit_length() > MAX_INT_BITS:
+            raise InvalidInstanceError(f"{where}: {_short(expr)} is too large (an integer of more than "
+                                       f"{MAX_INT_BITS} bits, beyond about 1.8e308)")
+        return v
+    if isinstance(v, float):
+        if not math.isfinite(v):
+            raise InvalidInstanceError(f"{where}: {_short(expr)} does not evaluate to a finite number "
+                                       "(overflow or not a number)")
+        return v
+    raise InvalidInstanceError(f"{where}: {_short(expr)} does not evaluate to a real number")
+
+
+def _short(expr) -> str:
+    """``repr(expr)``, cut when long, so that a message stays one readable line."""
+    text = repr(expr)
+    return text if len(text) <= 80 else text[:60] + f"...({len(text)} characters)"
+
+
+def _name(key) -> str:
+    """A key as written in messages: plain when it is short and printable, else quoted and cut."""
+    return key if isinstance(key, str) and key.isprintable() and 0 < len(key) <= 60 else _short(key)
+
+
+def _written(expr) -> str:
+    """An expression as it would be written in the file (``"T - 2"``, ``4``), cut when long."""
+    text = json.dumps(expr, ensure_ascii=False) if isinstance(expr, str) else repr(expr)
+    return text if len(text) <= 80 else text[:60] + f"...({len(text)} characters)"
+
+
+def _depth(tree: ast.AST) -> int:
+    """Nesting depth of an AST, computed without recursion."""
+    deepest, stack = 0, [(tree, 1)]
+    while stack:
+        node, d = stack.pop()
+        deepest = max(deepest, d)
+        stack.extend((child, d + 1) for child in ast.iter_child_nodes(node))
+    return deepest
+
+
+def _power(a, b, where: str, expr):
+    """``a ** b``, refused before it is computed when ``|a| ** b`` would exceed ``2**MAX_INT_BITS``."""
+    if a != 0 and abs(a) != 1 and b * math.log2(abs(a)) > MAX_INT_BITS:
+        raise InvalidInstanceError(f"{where}: power {_short(a)} ** {_short(b)} in {_short(expr)} is too large "
+                                   f"(beyond 2**{MAX_INT_BITS})")
+    v = a ** b
+    if isinstance(v, complex):
+        raise InvalidInstanceError(f"{where}: power {_short(a)} ** {_short(b)} in {_short(expr)} is not a real number")
+    return v
+
+
 def evaluate(expr: Any, params: Mapping[str, float], where: str = "expression") -> int | float:
     """Evaluate a number or an arithmetic expression string over ``params`` (no ``eval``).
+
+    Expressions are at most :data:`MAX_EXPRESSION_CHARS` characters and
+    :data:`MAX_EXPRESSION_DEPTH` levels deep, and every number met (literal, parameter,
+    intermediate or final) must be finite and at most ``2**MAX_INT_BITS`` in size: a power
+    that would be larger is refused before it is computed.  Evaluation therefore always
+    ends quickly, with a number or with one line.
 
     Raises
     ------
@@ -97,66 +183,89 @@ def evaluate(expr: Any, params: Mapping[str, float], where: str = "expression") 
 
     >>> evaluate("T // 2 + sqrt(16)", {"T": 7})
     7.0
+    >>> evaluate("(10**6)**64", {}, "f.toml: [instance] rows")
+    Traceback (most recent call last):
+    ...
+    advbound.errors.InvalidInstanceError: f.toml: [instance] rows: power 1000000 ** 64 in '(10**6)**64' is too large (beyond 2**1024)
     """
     if isinstance(expr, bool):
         raise InvalidInstanceError(f"{where}: expected a number or an expression, got {expr!r}")
     if isinstance(expr, (int, float)):
-        if not math.isfinite(expr):
-            raise InvalidInstanceError(f"{where}: {expr!r} is not a finite number")
-        return expr
+        return _check_number(expr, where, expr)
     if not isinstance(expr, str):
-        raise InvalidInstanceError(f"{where}: expected a number or an expression, got {expr!r}")
+        raise InvalidInstanceError(f"{where}: expected a number or an expression, got {_short(expr)}")
+    if len(expr) > MAX_EXPRESSION_CHARS:
+        raise InvalidInstanceError(f"{where}: the expression has {len(expr)} characters "
+                                   f"(at most {MAX_EXPRESSION_CHARS})")
     try:
         tree = ast.parse(expr.strip(), mode="eval")
-    except SyntaxError:
-        raise InvalidInstanceError(f"{where}: cannot parse expression {expr!r}") from None
+    except (SyntaxError, ValueError):
+        raise InvalidInstanceError(f"{where}: cannot parse expression {_short(expr)}") from None
+    except (RecursionError, MemoryError):
+        raise InvalidInstanceError(f"{where}: expression {_short(expr)} is nested too deeply "
+                                   f"(at most {MAX_EXPRESSION_DEPTH} levels)") from None
+    if _depth(tree) > MAX_EXPRESSION_DEPTH:
+        raise InvalidInstanceError(f"{where}: expression {_short(expr)} is nested too deeply "
+                                   f"(at most {MAX_EXPRESSION_DEPTH} levels)")
 
     def ev(node):
         if isinstance(node, ast.Expression):
             return ev(node.body)
         if isinstance(node, ast.Constant):
             if isinstance(node.value, bool) or not isinstance(node.value, (int, float)):
-                raise InvalidInstanceError(f"{where}: {node.value!r} is not a number")
-            return node.value
+                raise InvalidInstanceError(f"{where}: {_short(node.value)} is not a number")
+            return _check_number(node.value, where, expr)
         if isinstance(node, ast.Name):
             if node.id not in params:
                 raise InvalidInstanceError(f"{where}: unknown name {node.id!r}")
-            return params[node.id]
+            return _check_number(params[node.id], where, node.id)
         if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.UAdd, ast.USub)):
             v = ev(node.operand)
             return -v if isinstance(node.op, ast.USub) else +v
         if isinstance(node, ast.BinOp) and type(node.op) in _BINOPS:
             a, b = ev(node.left), ev(node.right)
-            if isinstance(node.op, ast.Pow) and (abs(b) > 64 or abs(a) > 1e6):
-                raise InvalidInstanceError(f"{where}: power {a!r} ** {b!r} is too large")
-            return _BINOPS[type(node.op)](a, b)
+            if isinstance(node.op, ast.Pow):
+                return _check_number(_power(a, b, where, expr), where, expr)
+            return _check_number(_BINOPS[type(node.op)](a, b), where, expr)
         if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) and not node.keywords:
             fn = _FUNCS.get(node.func.id)
             if fn is None:
                 raise InvalidInstanceError(f"{where}: unknown function {node.func.id!r} "
                                            f"(allowed: {', '.join(_FUNCS)})")
-            return fn(*[ev(a) for a in node.args])
-        raise InvalidInstanceError(f"{where}: {ast.unparse(node)!r} is not allowed in an expression")
+            return _check_number(fn(*[ev(a) for a in node.args]), where, expr)
+        raise InvalidInstanceError(f"{where}: {_short(ast.unparse(node))} is not allowed in an expression")
 
     try:
         value = ev(tree)
     except InvalidInstanceError:
         raise
     except (ZeroDivisionError, ValueError, TypeError, OverflowError) as e:
-        raise InvalidInstanceError(f"{where}: cannot evaluate {expr!r}: {e}") from None
-    if isinstance(value, complex) or not math.isfinite(value):
-        raise InvalidInstanceError(f"{where}: {expr!r} does not evaluate to a finite real number")
-    return value
+        raise InvalidInstanceError(f"{where}: cannot evaluate {_short(expr)}: {e}") from None
+    except (RecursionError, MemoryError):
+        raise InvalidInstanceError(f"{where}: expression {_short(expr)} is too complex to evaluate") from None
+    return _check_number(value, where, expr)
 
 
-def _as_int(value, where: str, lo: int | None = None) -> int:
+def _as_int(value, where: str, lo: int | None = None, expr=None) -> int:
+    """``value`` as an int (integral floats allowed) of at least ``lo``.
+
+    With the written ``expr`` (a string), the message quotes it:
+    ``f.toml [grid point T=2]: [instance] row_length = "T - 2" evaluates to 0, must be >= 1``.
+    """
+    said = f"{where} = {_written(expr)} evaluates to {value!r}" if isinstance(expr, str) else None
     if isinstance(value, float):
         if not value.is_integer():
-            raise InvalidInstanceError(f"{where}: must be an integer, got {value!r}")
+            raise InvalidInstanceError(f"{said}, must be an integer" if said else
+                                       f"{where}: must be an integer, got {value!r}")
         value = int(value)
     if lo is not None and value < lo:
-        raise InvalidInstanceError(f"{where}: must be >= {lo}, got {value}")
+        raise InvalidInstanceError(f"{said}, must be >= {lo}" if said else f"{where}: must be >= {lo}, got {value}")
     return value
+
+
+def _int_of(expr, p, where: str, lo: int | None = None) -> int:
+    """Evaluate ``expr`` and check it is an integer of at least ``lo`` (one line naming ``where``)."""
+    return _as_int(evaluate(expr, p, where), where, lo, expr)
 
 
 def _canon_number(v):
@@ -208,34 +317,41 @@ class InstanceSpec:
         return tuple(self.grid)
 
 
-def load_instance(path: str | os.PathLike) -> InstanceSpec:
+def load_instance(path: str | os.PathLike, *, max_points: int = MAX_GRID_POINTS) -> InstanceSpec:
     """Read and validate an instance file.
 
-    Every grid point is resolved once, so unknown names and bad values are reported here
-    (``"f.toml: [instance] row_length: unknown name 'Tx'"``).
+    The file must be UTF-8 text (a byte-order mark is accepted) of at most
+    :data:`MAX_INSTANCE_BYTES`.  Every grid point is resolved once, so unknown names and bad
+    values are reported here (``"f.toml: [instance] row_length: unknown name 'Tx'"``; with
+    a grid, the point is named: ``"f.toml [grid point T=2]: [instance] row_length = ..."``).
     """
     path = os.fspath(path)
-    with open(path, "rb") as fh:
-        data = fh.read()
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InvalidInstanceError(f"{path}: not UTF-8 text") from None
-    return parse_instance(text, source=path, base_dir=os.path.dirname(os.path.abspath(path)))
+    text = read_text(path, max_bytes=MAX_INSTANCE_BYTES, error=InvalidInstanceError, what="instance file",
+                     override="advbound.instance.MAX_INSTANCE_BYTES", binary_ok=True)
+    return parse_instance(text, source=path, base_dir=os.path.dirname(os.path.abspath(path)),
+                          max_points=max_points)
 
 
-def parse_instance(text: str, source: str = "<string>", base_dir: str = ".") -> InstanceSpec:
-    """Parse instance-file text; see :func:`load_instance`."""
+def parse_instance(text: str, source: str = "<string>", base_dir: str = ".", *,
+                   max_points: int = MAX_GRID_POINTS) -> InstanceSpec:
+    """Parse instance-file text; see :func:`load_instance`.
+
+    A grid of more than ``max_points`` points (default :data:`MAX_GRID_POINTS`) is refused.
+    """
+    if text.startswith("\ufeff"):
+        text = text[1:]
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise InvalidInstanceError(f"{source}: invalid TOML: {e}") from None
+    except (RecursionError, MemoryError):
+        raise InvalidInstanceError(f"{source}: invalid TOML: arrays or tables nested too deeply") from None
     inst = doc.get("instance")
     if not isinstance(inst, dict):
         raise InvalidInstanceError(f"{source}: missing [instance] table")
     for key in inst:
         if key not in _INSTANCE_KEYS:
-            raise InvalidInstanceError(f"{source}: [instance] {key}: unknown key (expected one of "
+            raise InvalidInstanceError(f"{source}: [instance] {_name(key)}: unknown key (expected one of "
                                        f"{', '.join(_INSTANCE_KEYS)})")
     grid_raw = doc.get("grid", {})
     if not isinstance(grid_raw, dict):
@@ -248,7 +364,7 @@ def parse_instance(text: str, source: str = "<string>", base_dir: str = ".") -> 
         if key in ("instance", "grid", "study"):
             continue
         if not isinstance(value, dict):
-            raise InvalidInstanceError(f"{source}: top-level key {key!r} must be inside a table "
+            raise InvalidInstanceError(f"{source}: top-level key {_short(key)} must be inside a table "
                                        "(did you mean it for [instance]?)")
         tables[key] = value
     name = inst.get("name", os.path.splitext(os.path.basename(source))[0])
@@ -257,13 +373,18 @@ def parse_instance(text: str, source: str = "<string>", base_dir: str = ".") -> 
     description = inst.get("description", "")
     if not isinstance(description, str):
         raise InvalidInstanceError(f"{source}: [instance] description: must be a string")
-    grid = {key: _grid_values(value, f"{source}: [grid] {key}") for key, value in grid_raw.items()}
-    for key in grid:
+    for key in grid_raw:
         if not key.isidentifier() or key in _FUNCS:
-            raise InvalidInstanceError(f"{source}: [grid] {key}: not usable as a parameter name")
+            raise InvalidInstanceError(f"{source}: [grid] {_name(key)}: not usable as a parameter name")
+    grid = {key: _grid_values(value, f"{source}: [grid] {key}") for key, value in grid_raw.items()}
     spec = InstanceSpec(name=name, path=source, description=description, instance=inst, grid=grid,
                         study=study, tables=tables, base_dir=base_dir)
-    for params in grid_points(spec):
+    count = grid_size(spec)
+    if count > max_points:
+        sizes = " x ".join(f"{k}: {len(v)}" for k, v in grid.items())
+        raise InvalidInstanceError(f"{source}: [grid] has {count:,} points ({sizes} values), more than "
+                                   f"{max_points:,}; split the grid or pass max_points")
+    for params in iter_grid_points(spec):
         resolved(spec, params)
     return spec
 
@@ -272,43 +393,84 @@ def _grid_values(value, where: str) -> list:
     if isinstance(value, bool):
         raise InvalidInstanceError(f"{where}: expected a number, a list or {{from, to, step}}, got {value!r}")
     if isinstance(value, (int, float)):
-        return [value]
+        return [evaluate(value, {}, where)]
     if isinstance(value, list):
         if not value:
             raise InvalidInstanceError(f"{where}: the list of values is empty")
-        for v in value:
+        if len(value) > _MAX_GRID_VALUES:
+            raise InvalidInstanceError(f"{where}: the list has {len(value)} values (at most {_MAX_GRID_VALUES})")
+        for i, v in enumerate(value):
             if isinstance(v, bool) or not isinstance(v, (int, float)):
-                raise InvalidInstanceError(f"{where}: value {v!r} is not a number")
+                raise InvalidInstanceError(f"{where}: value {_short(v)} is not a number")
+            evaluate(v, {}, f"{where}[{i + 1}]")
         return list(value)
     if isinstance(value, dict):
         for k in value:
             if k not in ("from", "to", "step"):
-                raise InvalidInstanceError(f"{where}: unknown key {k!r} (expected from, to, step)")
+                raise InvalidInstanceError(f"{where}: unknown key {_short(k)} (expected from, to, step)")
         if "from" not in value or "to" not in value:
             raise InvalidInstanceError(f"{where}: a range needs 'from' and 'to'")
         a, b, s = value["from"], value["to"], value.get("step", 1)
         for nm, v in (("from", a), ("to", b), ("step", s)):
             if isinstance(v, bool) or not isinstance(v, (int, float)):
-                raise InvalidInstanceError(f"{where}: {nm} must be a number, got {v!r}")
+                raise InvalidInstanceError(f"{where}: {nm} must be a number, got {_short(v)}")
+            evaluate(v, {}, f"{where}.{nm}")
         if s <= 0:
             raise InvalidInstanceError(f"{where}: step must be positive, got {s!r}")
         if b < a:
             raise InvalidInstanceError(f"{where}: 'to' ({b!r}) is smaller than 'from' ({a!r})")
-        count = int(math.floor((b - a) / s + 1e-9)) + 1
-        if count > 100000:
-            raise InvalidInstanceError(f"{where}: the range has {count} values (at most 100000)")
+        try:
+            count = int(math.floor((b - a) / s + 1e-9)) + 1
+        except OverflowError:
+            count = math.inf
+        if count > _MAX_GRID_VALUES:
+            shown = f"{count:,}" if count < 10 ** 15 else f"about {float(count):.3g}"
+            raise InvalidInstanceError(f"{where}: the range has {shown} values (at most {_MAX_GRID_VALUES})")
         out = [a + i * s for i in range(count)]
         return [int(v) if all(isinstance(x, int) for x in (a, s)) else v for v in out]
-    raise InvalidInstanceError(f"{where}: expected a number, a list or {{from, to, step}}, got {value!r}")
+    raise InvalidInstanceError(f"{where}: expected a number, a list or {{from, to, step}}, got {_short(value)}")
 
 
-def grid_points(spec: InstanceSpec) -> list[dict]:
+#: Largest number of values of one grid key.
+_MAX_GRID_VALUES = 100_000
+
+
+def grid_size(spec: InstanceSpec) -> int:
+    """Number of grid points (the product of the value counts; 1 without a grid), without listing them."""
+    return math.prod(len(v) for v in spec.grid.values())
+
+
+def iter_grid_points(spec: InstanceSpec):
+    """The grid points one at a time, in :func:`grid_points` order, without building the list."""
+    names = list(spec.grid)
+    for combo in itertools.product(*(spec.grid[k] for k in names)):
+        yield dict(zip(names, combo))
+
+
+def grid_points(spec: InstanceSpec, *, max_points: int = MAX_GRID_POINTS) -> list[dict]:
     """The cartesian product of the grid, in the order the keys are written (last varies fastest).
 
-    ``[{}]`` when the file has no grid.
+    ``[{}]`` when the file has no grid.  Use :func:`iter_grid_points` to walk a grid without
+    holding it; a grid of more than ``max_points`` points is refused here.
     """
-    names = list(spec.grid)
-    return [dict(zip(names, combo)) for combo in itertools.product(*(spec.grid[k] for k in names))]
+    count = grid_size(spec)
+    if count > max_points:
+        raise InvalidInstanceError(f"{spec.path}: [grid] has {count:,} points, more than {max_points:,}")
+    return list(iter_grid_points(spec))
+
+
+def point_label(params: Mapping) -> str:
+    """``"T=4, rows=2"``: a grid point as written in messages and descriptions.
+
+    >>> point_label({"T": 4, "rows": 2})
+    'T=4, rows=2'
+    """
+    return ", ".join(f"{k}={v}" for k, v in params.items())
+
+
+def _source(spec: InstanceSpec, p: Mapping) -> str:
+    """``"f.toml"``, or ``"f.toml [grid point T=4]"`` when the grid has parameters."""
+    return f"{spec.path} [grid point {point_label(p)}]" if p else spec.path
 
 
 def _params(spec: InstanceSpec, params: Mapping | None) -> dict:
@@ -316,10 +478,11 @@ def _params(spec: InstanceSpec, params: Mapping | None) -> dict:
     for key in params:
         if key not in spec.grid:
             known = ", ".join(spec.grid) or "no parameters"
-            raise InvalidInstanceError(f"{spec.path}: unknown parameter {key!r} (the grid defines {known})")
+            raise InvalidInstanceError(f"{spec.path}: unknown parameter {_short(key)} (the grid defines {known})")
         v = params[key]
         if isinstance(v, bool) or not isinstance(v, (int, float)):
-            raise InvalidInstanceError(f"{spec.path}: parameter {key}={v!r} is not a number")
+            raise InvalidInstanceError(f"{spec.path}: parameter {key}={_short(v)} is not a number")
+        evaluate(v, {}, f"{spec.path}: parameter {key}")
     missing = [k for k in spec.grid if k not in params]
     if missing:
         raise InvalidInstanceError(f"{spec.path}: missing value for grid parameter(s) {', '.join(missing)}")
@@ -336,19 +499,26 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
     ``inner`` (one table per row), ``time`` (``None``, a table, or one per row), ``budget``
     (``None`` or a table) and ``max_ones`` (``None`` or an int).  Table files appear as
     ``{"table": <path as written>, "sha256": <hash of the file>}``.
+
+    A position-search row longer than any allowed time profile can use is given its usable
+    length (:func:`~advbound.builders.usable_row_lengths`): its later positions would be
+    ``*`` on every input, so the function is the same without them, and it is never built
+    with them (``row_length = "10**8"`` at ``T = 4`` is the row of length ``T - rows + 1``).
+
+    Every message names the file, the grid point (when the grid has parameters) and the key.
     """
     p = _params(spec, params)
     inst = spec.instance
-    src = spec.path
+    src = _source(spec, p)
 
     def where(key: str) -> str:
         return f"{src}: [instance] {key}"
 
     if "outer" not in inst:
         raise InvalidInstanceError(f"{where('outer')}: missing (e.g. outer = \"or\")")
-    outer = _resolve_function(spec, inst["outer"], p, "outer", rows=None)
+    outer = _resolve_function(spec, inst["outer"], p, "outer", src)
     if "rows" in inst:
-        rows = _as_int(evaluate(inst["rows"], p, where("rows")), where("rows"), 1)
+        rows = _int_of(inst["rows"], p, where("rows"), 1)
     elif "arity" in outer:
         rows = outer["arity"]
     else:
@@ -368,9 +538,9 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
     if isinstance(inner_raw, list):
         if len(inner_raw) != rows:
             raise InvalidInstanceError(f"{where('inner')}: {len(inner_raw)} entries for {rows} rows")
-        inner = [_resolve_inner(spec, v, p, f"inner[{i + 1}]") for i, v in enumerate(inner_raw)]
+        inner = [_resolve_inner(spec, v, p, f"inner[{i + 1}]", src) for i, v in enumerate(inner_raw)]
     else:
-        inner = [_resolve_inner(spec, inner_raw, p, "inner")] * rows
+        inner = [_resolve_inner(spec, inner_raw, p, "inner", src)] * rows
         inner = [dict(d) for d in inner]
     if "row_length" in inst and not any(d.get("_uses_row_length") for d in inner):
         raise InvalidInstanceError(f"{where('row_length')}: only used with inner = \"position_search\"")
@@ -400,39 +570,91 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
         time = {"alpha": 0.5}
     max_ones = None
     if "max_ones" in inst:
-        max_ones = _as_int(evaluate(inst["max_ones"], p, where("max_ones")), where("max_ones"), 0)
+        max_ones = _int_of(inst["max_ones"], p, where("max_ones"), 0)
+    if budget is not None:
+        _shorten_rows(inner, time, budget, src)
     return {"name": spec.name, "description": spec.description, "rows": rows, "outer": outer,
             "inner": inner, "time": time, "budget": budget, "max_ones": max_ones}
 
 
-def _table_entry(spec: InstanceSpec, path, where: str) -> dict:
+def _shorten_rows(inner: list[dict], time, budget: dict, src: str) -> None:
+    """Cut position-search rows in ``inner`` (in place) to the positions the budget can use."""
+    lengths = [d.get("position_search") for d in inner]
+    if not any(m is not None for m in lengths):
+        return
+    try:
+        models = [_time_model(t) for t in time] if isinstance(time, list) else [_time_model(time)] * len(inner)
+        usable = usable_row_lengths(lengths, models, _budget(budget))
+    except AdvboundError as e:
+        raise InvalidInstanceError(f"{src}: [instance] budget: {e}") from None
+    for i, (d, m, u) in enumerate(zip(inner, lengths, usable)):
+        if m is not None and u is not None and u < m:
+            d["position_search"] = u
+            note = (src, i, m, u)
+            if note not in _SHORTENED:  # said once, although every point is resolved several times
+                _SHORTENED.add(note)
+                log.info("%s: row %d: positions %d..%d can never be used under the budget; building length %d",
+                         src, i + 1, u + 1, m, u)
+
+
+_SHORTENED: set = set()
+
+
+def _budget(b: dict) -> Budget:
+    """The :class:`Budget` of a resolved ``budget`` table."""
+    if "sum_squares" in b:
+        return Budget.sum_squares(b["sum_squares"], b["rtol"])
+    if "at_most" in b:
+        return Budget.at_most(b["at_most"], b["rtol"])
+    return Budget.from_profiles(b["profiles"], b["permutations"])
+
+
+@functools.lru_cache(maxsize=64)
+def _table_file(full: str, mtime_ns: int, size: int) -> tuple[str, PartialFunction]:
+    """SHA-256 and function of a table file, read once per version of the file."""
+    try:
+        with open(full, "rb") as fh:
+            data = fh.read(MAX_TABLE_BYTES + 1)
+    except OSError as e:
+        raise AdvboundError(f"{full}: cannot read the table file: {e.strerror or e}") from None
+    if len(data) > MAX_TABLE_BYTES:
+        raise AdvboundError(f"{full}: larger than the limit of {MAX_TABLE_BYTES >> 20} MiB for table files")
+    f = parse_table(decode_text(data, full), source=full)
+    return hashlib.sha256(data).hexdigest(), f
+
+
+def _load_table(spec: InstanceSpec, path, where: str) -> tuple[dict, PartialFunction]:
+    """``({"table", "sha256"}, function)`` of a table named in the instance file."""
     if not isinstance(path, str) or not path:
         raise InvalidInstanceError(f"{where}: table must be a file name")
     full = path if os.path.isabs(path) else os.path.join(spec.base_dir, path)
     try:
-        with open(full, "rb") as fh:
-            data = fh.read()
+        st = os.stat(full)
     except OSError:
-        raise InvalidInstanceError(f"{where}: cannot read table file {path!r}") from None
-    return {"table": path, "sha256": hashlib.sha256(data).hexdigest(), "_full": full}
+        raise InvalidInstanceError(f"{where}: cannot read table file {_short(path)}") from None
+    if not stat.S_ISREG(st.st_mode):
+        raise InvalidInstanceError(f"{where}: table file {_short(path)} is not a regular file")
+    if st.st_size > MAX_TABLE_BYTES:
+        raise InvalidInstanceError(f"{where}: table file {_short(path)} is larger than the limit of "
+                                   f"{MAX_TABLE_BYTES >> 20} MiB")
+    try:
+        sha, f = _table_file(full, st.st_mtime_ns, st.st_size)
+    except AdvboundError as e:
+        raise InvalidInstanceError(f"{where}: {e}") from None
+    return {"table": path, "sha256": sha}, f
 
 
-def _resolve_function(spec, value, p, key, rows) -> dict:
-    where = f"{spec.path}: [instance] {key}"
+def _resolve_function(spec, value, p, key, src) -> dict:
+    where = f"{src}: [instance] {key}"
     if isinstance(value, str):
         value = {"function": value}
     if not isinstance(value, dict):
-        raise InvalidInstanceError(f"{where}: expected a function name or a table, got {value!r}")
+        raise InvalidInstanceError(f"{where}: expected a function name or a table, got {_short(value)}")
     if "table" in value:
         extra = [k for k in value if k != "table"]
         if extra:
-            raise InvalidInstanceError(f"{where}: unknown key {extra[0]!r} next to 'table'")
-        entry = _table_entry(spec, value["table"], where)
-        try:
-            f = read_table(entry["_full"])
-        except AdvboundError as e:
-            raise InvalidInstanceError(f"{where}: {e}") from None
-        del entry["_full"]
+            raise InvalidInstanceError(f"{where}: unknown key {_short(extra[0])} next to 'table'")
+        entry, f = _load_table(spec, value["table"], where)
         entry["arity"] = f.n
         return entry
     if "function" not in value:
@@ -441,37 +663,35 @@ def _resolve_function(spec, value, p, key, rows) -> dict:
     for k in value:
         if k not in keys:
             hint = " (the outer arity is rows)" if k == "n" else ""
-            raise InvalidInstanceError(f"{where}: unknown key {k!r}{hint} (expected {', '.join(keys)})")
+            raise InvalidInstanceError(f"{where}: unknown key {_short(k)}{hint} (expected {', '.join(keys)})")
     name = value["function"]
     if not isinstance(name, str) or name.lower() not in NAMED_FUNCTIONS:
-        raise InvalidInstanceError(f"{where}: unknown function {name!r} (expected one of "
+        raise InvalidInstanceError(f"{where}: unknown function {_short(name)} (expected one of "
                                    f"{', '.join(NAMED_FUNCTIONS)})")
     out = {"function": name.lower()}
     if "k" in value:
-        out["k"] = _as_int(evaluate(value["k"], p, f"{where}.k"), f"{where}.k", 0)
+        out["k"] = _int_of(value["k"], p, f"{where}.k", 0)
     if "n" in value:
-        out["n"] = _as_int(evaluate(value["n"], p, f"{where}.n"), f"{where}.n", 1)
+        out["n"] = _int_of(value["n"], p, f"{where}.n", 1)
     return out
 
 
-def _resolve_inner(spec, value, p, key) -> dict:
-    where = f"{spec.path}: [instance] {key}"
+def _resolve_inner(spec, value, p, key, src) -> dict:
+    where = f"{src}: [instance] {key}"
     inst = spec.instance
     if value == "position_search":
         if "row_length" not in inst:
-            raise InvalidInstanceError(f"{spec.path}: [instance] row_length: missing (needed by "
+            raise InvalidInstanceError(f"{src}: [instance] row_length: missing (needed by "
                                        "inner = \"position_search\")")
-        w = f"{spec.path}: [instance] row_length"
-        m = _as_int(evaluate(inst["row_length"], p, w), w, 1)
+        m = _int_of(inst["row_length"], p, f"{src}: [instance] row_length", 1)
         return {"position_search": m, "_uses_row_length": True}
     if isinstance(value, dict) and "position_search" in value:
         extra = [k for k in value if k != "position_search"]
         if extra:
-            raise InvalidInstanceError(f"{where}: unknown key {extra[0]!r} next to 'position_search'")
-        w = f"{where}.position_search"
-        return {"position_search": _as_int(evaluate(value["position_search"], p, w), w, 1)}
+            raise InvalidInstanceError(f"{where}: unknown key {_short(extra[0])} next to 'position_search'")
+        return {"position_search": _int_of(value["position_search"], p, f"{where}.position_search", 1)}
     if isinstance(value, dict):
-        d = _resolve_function(spec, value, p, key, None)
+        d = _resolve_function(spec, value, p, key, src)
         if "function" in d:
             if "n" not in d:
                 raise InvalidInstanceError(f"{where}: an inner {d['function']!r} needs n (its number of bits)")
@@ -480,7 +700,7 @@ def _resolve_inner(spec, value, p, key) -> dict:
             except AdvboundError as e:
                 raise InvalidInstanceError(f"{where}: {e}") from None
         return d
-    raise InvalidInstanceError(f"{where}: expected \"position_search\" or a table, got {value!r}")
+    raise InvalidInstanceError(f"{where}: expected \"position_search\" or a table, got {_short(value)}")
 
 
 def _resolve_time(value, p, where) -> dict:
@@ -488,7 +708,7 @@ def _resolve_time(value, p, where) -> dict:
         return {"alpha": 0.5}
     if not isinstance(value, dict) or len(value) != 1:
         raise InvalidInstanceError(f"{where}: expected \"sqrt\", {{alpha = ...}}, {{table = [...]}} "
-                                   f"or {{inputs = {{...}}}}, got {value!r}")
+                                   f"or {{inputs = {{...}}}}, got {_short(value)}")
     (k, v), = value.items()
     if k == "alpha":
         return {"alpha": float(evaluate(v, p, f"{where}.alpha"))}
@@ -505,17 +725,17 @@ def _resolve_time(value, p, where) -> dict:
             raise InvalidInstanceError(f"{where}.inputs: expected a non-empty table input = time")
         out = {}
         for x, t in v.items():
-            tv = float(evaluate(t, p, f"{where}.inputs.{x}"))
+            tv = float(evaluate(t, p, f"{where}.inputs.{_name(x)}"))
             if tv < 0:
-                raise InvalidInstanceError(f"{where}.inputs.{x}: times must be >= 0, got {tv!r}")
+                raise InvalidInstanceError(f"{where}.inputs.{_name(x)}: times must be >= 0, got {tv!r}")
             out[x] = tv
         return {"inputs": dict(sorted(out.items()))}
-    raise InvalidInstanceError(f"{where}: unknown key {k!r} (expected alpha, table or inputs)")
+    raise InvalidInstanceError(f"{where}: unknown key {_short(k)} (expected alpha, table or inputs)")
 
 
 def _resolve_budget(value, p, where, time_raw) -> dict:
     if not isinstance(value, dict):
-        raise InvalidInstanceError(f"{where}: expected a table such as {{ sum_squares = \"T\" }}, got {value!r}")
+        raise InvalidInstanceError(f"{where}: expected a table such as {{ sum_squares = \"T\" }}, got {_short(value)}")
     kinds = [k for k in ("sum_squares", "at_most", "profiles") if k in value]
     if len(kinds) != 1:
         raise InvalidInstanceError(f"{where}: give exactly one of sum_squares, at_most, profiles")
@@ -524,7 +744,7 @@ def _resolve_budget(value, p, where, time_raw) -> dict:
                "profiles": ("profiles", "permutations")}[kind]
     for k in value:
         if k not in allowed:
-            raise InvalidInstanceError(f"{where}: unknown key {k!r} with {kind} (expected {', '.join(allowed)})")
+            raise InvalidInstanceError(f"{where}: unknown key {_short(k)} with {kind} (expected {', '.join(allowed)})")
     if kind in ("sum_squares", "at_most"):
         T = _canon_number(evaluate(value[kind], p, f"{where}.{kind}"))
         rtol = evaluate(value.get("rtol", 1e-9), p, f"{where}.rtol")
@@ -544,7 +764,7 @@ def _resolve_budget(value, p, where, time_raw) -> dict:
         if by_time:
             vals = [float(x) for x in vals]
         else:
-            vals = [_as_int(x, f"{where}.profiles[{i + 1}]", 1) for x in vals]
+            vals = [_as_int(x, f"{where}.profiles[{i + 1}]", 1, e) for x, e in zip(vals, q)]
         out.append(sorted(vals) if perm else vals)
     uniq = sorted({tuple(q) for q in out})
     return {"profiles": [list(q) for q in uniq], "permutations": perm}
@@ -601,64 +821,72 @@ def time_model_of(spec: InstanceSpec, params: Mapping | None = None):
     return _time_model(t)
 
 
-def _function_from(spec: InstanceSpec, d: dict, n_default: int | None) -> PartialFunction:
+def _function_from(spec: InstanceSpec, d: dict, n_default: int | None, max_inputs) -> PartialFunction:
     if "table" in d:
-        path = d["table"]
-        return read_table(path if os.path.isabs(path) else os.path.join(spec.base_dir, path))
+        return _load_table(spec, d["table"], f"{spec.path}: table {_short(d['table'])}")[1]
     if "position_search" in d:
-        return position_search_row(d["position_search"])
+        return position_search_row(d["position_search"], max_inputs=max_inputs)
     return named_function(d["function"], d.get("n", n_default), d.get("k"))
 
 
-def build_instance(spec: InstanceSpec, params: Mapping | None = None) -> PartialFunction:
+def build_instance(spec: InstanceSpec, params: Mapping | None = None, *,
+                   max_inputs: int | None | str = "default") -> PartialFunction:
     """The partial function described by ``spec`` at grid point ``params``.
+
+    Parameters
+    ----------
+    spec : InstanceSpec
+        A loaded instance file.
+    params : mapping, optional
+        The grid point (every grid parameter, nothing else).
+    max_inputs : int, None or "default"
+        Refuse, before building, a function with more inputs than this or one that would not
+        fit in memory (see :func:`advbound.builders.check_domain_size`; the default is
+        :data:`advbound.builders.MAX_INPUTS` or the environment variable ``ADVBOUND_MAX_INPUTS``).
 
     Raises
     ------
     InvalidInstanceError
         If the grid has parameters and ``params`` lacks one (or names an unknown one), or the
-        instance cannot be built (the message names the file).
+        instance cannot be built; the message names the file and the grid point.
     """
     r = resolved(spec, params)
+    p = _params(spec, params)
+    src = _source(spec, p)
+    tag = f" [{point_label(p)}]" if p else ""
     try:
-        outer = _function_from(spec, r["outer"], r["rows"])
-        inners = [_function_from(spec, d, None) for d in r["inner"]]
-        tm = time_model_of(spec, params)
-        b = r["budget"]
-        budget = None
-        if b is not None:
-            if "sum_squares" in b:
-                budget = Budget.sum_squares(b["sum_squares"], b["rtol"])
-            elif "at_most" in b:
-                budget = Budget.at_most(b["at_most"], b["rtol"])
-            else:
-                budget = Budget.from_profiles(b["profiles"], b["permutations"])
-        p = _params(spec, params)
-        tag = " [" + ", ".join(f"{k}={v}" for k, v in p.items()) + "]" if p else ""
+        outer = _function_from(spec, r["outer"], r["rows"], max_inputs)
+        inners = [_function_from(spec, d, None, max_inputs) for d in r["inner"]]
+        t = r["time"]
+        tm = None if t is None else [_time_model(d) for d in t] if isinstance(t, list) else _time_model(t)
+        budget = _budget(r["budget"]) if r["budget"] is not None else None
         desc = f"{spec.name}: {spec.description}{tag}" if spec.description else None
-        f = compose(outer, inners, time_model=tm, budget=budget, max_ones=r["max_ones"], description=desc)
+        f = compose(outer, inners, time_model=tm, budget=budget, max_ones=r["max_ones"], description=desc,
+                    max_inputs=max_inputs)
     except InvalidInstanceError:
         raise
     except AdvboundError as e:
-        raise InvalidInstanceError(f"{spec.path}: {e}") from None
+        raise InvalidInstanceError(f"{src}: {e}") from None
     if desc is None:  # generated description: derive the tagged copy (runs the checks once more)
         f = dataclasses.replace(f, description=f"{spec.name}: {f.description}{tag}")
     return f
 
 
-def load_function(path: str | os.PathLike, params: Mapping | None = None) -> PartialFunction:
+def load_function(path: str | os.PathLike, params: Mapping | None = None, *,
+                  max_inputs: int | None | str = "default") -> PartialFunction:
     """Load a function from an instance file (``.toml``) or a table file (any other suffix).
 
     For an instance file with a grid and ``params=None``, the FIRST grid point is used.
+    ``max_inputs`` is passed to :func:`build_instance`.
     """
     path = os.fspath(path)
     if path.endswith(".toml"):
         spec = load_instance(path)
         if params is None:
-            params = grid_points(spec)[0]
+            params = next(iter_grid_points(spec))
             if params:
                 log.info("%s: using the first grid point %s", path, params)
-        return build_instance(spec, params)
+        return build_instance(spec, params, max_inputs=max_inputs)
     if params:
         raise InvalidInstanceError(f"{path}: parameters {', '.join(params)} given for a table file")
     return read_table(path)
@@ -675,15 +903,15 @@ def parse_params(items: Sequence[str] | None) -> dict:
         name, sep, value = str(item).partition("=")
         name, value = name.strip(), value.strip()
         if not sep or not name.isidentifier():
-            raise InvalidInstanceError(f"--set {item!r}: expected NAME=NUMBER")
+            raise InvalidInstanceError(f"--set {_short(item)}: expected NAME=NUMBER")
         try:
             v: int | float = int(value)
         except ValueError:
             try:
                 v = float(value)
             except ValueError:
-                raise InvalidInstanceError(f"--set {item!r}: {value!r} is not a number") from None
+                raise InvalidInstanceError(f"--set {_short(item)}: {_short(value)} is not a number") from None
             if not math.isfinite(v):
-                raise InvalidInstanceError(f"--set {item!r}: {value!r} is not a finite number")
+                raise InvalidInstanceError(f"--set {_short(item)}: {_short(value)} is not a finite number")
         out[name] = v
     return out

@@ -28,6 +28,7 @@ import datetime as _dt
 import io
 import json
 import math
+import logging
 import os
 from pathlib import Path
 from typing import Any
@@ -35,7 +36,10 @@ from typing import Any
 from .errors import AdvboundError
 from .store import Store, StoredRow
 
-__all__ = ["Series", "ReportFiles", "open_store", "collect_series", "fit_series", "write_report",
+log = logging.getLogger("advbound")
+
+__all__ = ["Series", "ReportFiles", "open_store", "collect_series", "fit_series", "write_report", "study_settings",
+           "invalid_points", "certificate_problems",
            "latex_results_table", "latex_fit_table", "ExactEntry", "ExactPoint", "collect_exact",
            "adversary_factor", "adversary_check", "markdown_exact_table", "latex_exact_table", "CHECK_SLACK", "FIT_MAX_GAP"]
 
@@ -86,7 +90,9 @@ class ReportFiles:
 def open_store(source, store: str | None = None) -> Store:
     """Open the store named by ``source``: a ``.sqlite`` store, or a study ``.toml`` (its ``store``).
 
-    ``store`` overrides the path taken from a study file.  The store is opened read-only.
+    ``store`` overrides the path taken from a study file.  The store is opened read-only (sqlite
+    ``mode=ro``; nothing is created next to it, see :class:`advbound.store.Store`), so stores on
+    read-only media can be reported on.
     """
     source = os.fspath(source)
     if store is not None:
@@ -104,18 +110,27 @@ def _latest(rows: list[StoredRow]) -> list[StoredRow]:
     return list(best.values())
 
 
+def _real(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
 def collect_series(store: Store, meta: dict | None = None) -> list[Series]:
     """Group the successful adversary rows into :class:`Series` by bound and series value.
 
     When several stored rows describe the same instance and bound (other solver settings or
-    versions), the most recent one is used.
+    versions), the most recent one is used.  Defective rows are left out by the store (with a
+    warning each); so is a row whose growth parameter is not a number (warned here).
     """
-    meta = meta if meta is not None else (store.get_meta("study") or {})
+    meta = study_settings(meta if meta is not None else store.study_meta(), store.path)
     growth = meta.get("growth") or "T"
     skey = meta.get("series")
     groups: dict = {}
     for r in _latest(store.rows(kind=_KIND, successful_only=True)):
         if r.lower is None or growth not in r.params:
+            continue
+        if not _real(r.params[growth]):
+            store.warn(f"{store.path}: row run_key {r.run_key[:12]}: column params_json: {growth} = "
+                       f"{r.params[growth]!r} is not a number; the row is left out of the series")
             continue
         key = r.params.get(skey) if skey else None
         groups.setdefault((r.bound, key), []).append(r)
@@ -134,6 +149,46 @@ def _sortable(v):
     return (0, float(v), "") if isinstance(v, (int, float)) else (1, 0.0, str(v))
 
 
+_SETTING_CHECKS = {
+    "name": (lambda v: isinstance(v, str), "must be text"),
+    "description": (lambda v: isinstance(v, str), "must be text"),
+    "report": (lambda v: isinstance(v, str), "must be text"),
+    "growth": (lambda v: isinstance(v, str), "must be text"),
+    "series": (lambda v: isinstance(v, str), "must be text"),
+    "laws": (lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v), "must be a list of law names"),
+    "offsets": (lambda v: isinstance(v, list) and all(isinstance(x, bool) for x in v),
+                "must be a list of true/false"),
+    "bounds": (lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v), "must be a list of text"),
+    "bootstrap": (lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= 0, "must be an integer >= 0"),
+    "seed": (lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= 0, "must be an integer >= 0"),
+    "fit_max_gap": (lambda v: _real(v) and v >= 0, "must be a number >= 0"),
+    "settings": (lambda v: isinstance(v, dict), "must be a table"),
+    "instance": (lambda v: isinstance(v, dict), "must be a table"),
+    "grid": (lambda v: isinstance(v, dict), "must be a table"),
+    "exact": (lambda v: isinstance(v, dict), "must be a table"),
+}
+
+
+def study_settings(meta: dict | None, source: str = "study settings") -> dict:
+    """``meta`` (the store's ``study`` value) after checking the keys reports and fits use.
+
+    Raises
+    ------
+    StoreError
+        One line naming ``source`` and the key, when a value has the wrong type (a hand edit).
+    """
+    from .store import StoreError
+    meta = {} if meta is None else meta
+    if not isinstance(meta, dict):
+        raise StoreError(f"{source}: meta key 'study' must be an object")
+    for key, (ok, what) in _SETTING_CHECKS.items():
+        v = meta.get(key)
+        if v is not None and not ok(v):
+            shown = repr(v) if len(repr(v)) <= 40 else repr(v)[:37] + "..."
+            raise StoreError(f"{source}: meta key 'study': {key} = {shown} {what}")
+    return meta
+
+
 def fit_series(series: list[Series], meta: dict | None = None, *, bootstrap: int | None = None,
                seed: int | None = None) -> dict:
     """Fit each series' verified lower bounds; returns ``{label: Comparison or reason-string}``.
@@ -142,7 +197,7 @@ def fit_series(series: list[Series], meta: dict | None = None, *, bootstrap: int
     it was not fitted.
     """
     from .fit import compare_models
-    meta = meta or {}
+    meta = study_settings(meta)
     laws = tuple(meta.get("laws") or ("sqrt", "sqrt_log", "power"))
     offsets = tuple(bool(o) for o in (meta.get("offsets") or (False, True)))
     bootstrap = int(meta.get("bootstrap", 200) if bootstrap is None else bootstrap)
@@ -488,7 +543,7 @@ def collect_exact(store: Store, meta: dict | None = None) -> tuple[list[str], li
     Columns are the fixed-t requests by t, then the least-t requests by ε.  The ADV± numbers are
     those of the latest successful ``general`` adversary row of the same instance (``None`` if absent).
     """
-    meta = meta if meta is not None else (store.get_meta("study") or {})
+    meta = study_settings(meta if meta is not None else store.study_meta(), store.path)
     growth = meta.get("growth") or "T"
     adv = {}
     for r in store.rows(kind=_KIND, bound="general", successful_only=True):
@@ -629,7 +684,7 @@ def _plot_exact(columns, points, growth, series_key, out) -> list[str]:
     ax_q, ax_p = fig.subplots(1, 2, squeeze=False)[0]
     groups: dict = {}
     for p in points:
-        if growth not in p.params:
+        if growth not in p.params or not _real(p.params[growth]):
             continue
         key = p.params.get(series_key) if series_key else None
         groups.setdefault(key, []).append(p)
@@ -734,17 +789,27 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
         When the store is missing or holds no study rows.
     """
     with open_store(source, store) as st:
-        meta = st.get_meta("study") or {}
+        meta = study_settings(st.study_meta(), st.path)
         rows = st.rows(kind=_KIND)
         series = collect_series(st, meta)
         exact_rows = st.rows(kind=_EXACT_KIND)
         exact = collect_exact(st, meta) if _has_exact(meta, exact_rows) else None
+        st.check_rows()
+        invalid = invalid_points(st.rows(), meta.get("grid"))
+        certs = certificate_problems(st, rows)
+        left_out = list(st.warnings)
         store_path = st.path
+        certificate = {r.run_key: _report_certificate(st, r) for r in rows}
     if not rows:
         raise AdvboundError(f"{store_path}: the store holds no adversary results yet; run the study first")
     name = meta.get("name") or Path(store_path).stem
     out = Path(out if out is not None else (meta.get("report") or f"reports/{name}"))
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise AdvboundError(f"{out}: cannot create the report folder ({err.strerror or err})") from None
+    if not os.access(out, os.W_OK):
+        raise AdvboundError(f"{out}: the report folder is not writable")
     growth = meta.get("growth") or "T"
     fits = fit_series(series, meta, bootstrap=bootstrap, seed=seed)
 
@@ -766,7 +831,7 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
                                           "rows": [r.to_dict() for r in exact_rows]},
                                          indent=1, sort_keys=True, default=str))
 
-    data_rows = [r.to_dict() for r in rows]
+    data_rows = [dict(r.to_dict(), certificate=certificate[r.run_key]) for r in rows]
     csv_path = out / "data.csv"
     cols = ["run_key", "kind", "bound", "params", "status", "lower", "upper", "gap", "domain_size",
             "time_solve", "time_total", "spec_key", "certificate", "error", "created"]
@@ -775,6 +840,7 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
         w.writerow(cols)
         for r in rows:
             w.writerow([json.dumps(r.params, sort_keys=True) if c == "params" else
+                        ("" if certificate[r.run_key] is None else certificate[r.run_key]) if c == "certificate" else
                         ("" if getattr(r, c) is None else getattr(r, c)) for c in cols])
     json_path = out / "data.json"
     json_path.write_text(json.dumps({"study": meta, "rows": data_rows}, indent=1, sort_keys=True, default=str))
@@ -785,11 +851,14 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
     generated = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
     versions = sorted({json.dumps(r.versions, sort_keys=True) for r in rows})
     prov = {
-        "generated": generated, "store": os.path.abspath(store_path), "study": meta,
+        "generated": generated, "store": os.path.relpath(os.path.abspath(store_path), os.path.abspath(out)),
+        "paths": "store: relative to this report's folder; certificate: relative to the store's folder",
+        "study": meta,
         "solver_settings": sorted({json.dumps(r.solver, sort_keys=True) for r in rows}),
         "versions": [json.loads(v) for v in versions],
         "points": [{"run_key": r.run_key, "spec_key": r.spec_key, "params": r.params, "bound": r.bound,
-                    "status": r.status, "certificate": r.certificate, "created": r.created} for r in rows],
+                    "status": r.status, "certificate": certificate[r.run_key], "created": r.created}
+                   for r in rows],
     }
     prov["solver_settings"] = [json.loads(s) for s in prov["solver_settings"]]
     if exact is not None:
@@ -804,13 +873,87 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
     summary = out / "summary.md"
     data = [csv_path, json_path, *([exact_json] if exact_json else []), fits_path]
     summary.write_text(_summary(meta, name, rows, series, fits, growth, generated, store_path, figures,
-                                tables, data, prov_path, out, exact))
+                                tables, data, prov_path, out, exact, invalid=invalid, left_out=left_out,
+                                certs=certs))
     return ReportFiles(str(out), str(summary), tuple(figures), tuple(str(t) for t in tables),
                        tuple(str(d) for d in data), str(prov_path))
 
 
+def _report_certificate(st: Store, r: StoredRow) -> str | None:
+    """The row's certificate path relative to the store's folder (stores of schema 1 hold absolute
+    paths: those inside the folder are made relative, others are shown as stored)."""
+    if not r.certificate or not os.path.isabs(r.certificate):
+        return r.certificate
+    path = os.path.normpath(r.certificate)
+    if os.path.commonpath([st.folder, path]) == st.folder:
+        return os.path.relpath(path, st.folder)
+    return r.certificate
+
+
+def certificate_problems(st: Store, rows: list[StoredRow]) -> list[str]:
+    """One line per successful row whose certificate is missing or outside the store's folder.
+
+    Such rows keep their numbers (verified when they were written) but cannot be rechecked from this
+    folder; one warning summarises them.
+    """
+    out = [m for m in (st.certificate_problem(r) for r in rows if r.success) if m]
+    if out:
+        st.warn(f"{st.path}: {len(out)} row(s) name a certificate that is missing or outside the store's "
+                f"folder (first: {out[0].split(': ', 1)[1]}); their numbers are kept but cannot be rechecked "
+                "from this folder")
+    return out
+
+
+def _point_key(r: StoredRow) -> tuple:
+    what = r.bound if r.kind != _EXACT_KIND else json.dumps(r.solver, sort_keys=True, default=str)
+    return r.kind, json.dumps(r.params, sort_keys=True, default=str), what
+
+
+def invalid_points(rows: list[StoredRow], grid: dict | None = None) -> list[tuple[dict, str, list[str]]]:
+    """The invalid points that no later row replaced: ``(params, message, [what, ...])`` per grid point
+    and message, in store order (``rows`` oldest first, as :meth:`Store.rows` returns them).
+
+    A point is replaced when a later row of the same kind, parameters and bound (or exact request)
+    exists, e.g. after the instance was fixed (its hash, hence its run key, changed).  With ``grid``
+    (the study's ``{parameter: [values]}``), points outside the grid are left out too.
+    """
+    last = {}
+    for r in rows:
+        last[_point_key(r)] = r
+    groups: dict = {}
+    for r in rows:
+        if r.invalid and last[_point_key(r)] is r and _in_grid(r.params, grid):
+            what = r.bound if r.kind != _EXACT_KIND else "exact " + _exact_label(r.solver)
+            g = groups.setdefault((json.dumps(r.params, sort_keys=True, default=str), r.message),
+                                  (r.params, r.message or "", []))
+            g[2].append(str(what))
+    return list(groups.values())
+
+
+def _in_grid(params: dict, grid: dict | None) -> bool:
+    if not grid:
+        return True
+    return all(isinstance(vals, list) and k in params and params[k] in vals for k, vals in grid.items())
+
+
+def _exact_label(req: dict) -> str:
+    return f"t={req.get('queries')}" if req.get("queries") is not None else f"eps={req.get('error')}"
+
+
+#: At most this many entries per list of invalid or left-out rows in ``summary.md``.
+SUMMARY_LIST_LIMIT = 20
+
+
+def _listing(w, items) -> None:
+    for line in items[:SUMMARY_LIST_LIMIT]:
+        w(f"* {line}\n")
+    if len(items) > SUMMARY_LIST_LIMIT:
+        w(f"* ... and {len(items) - SUMMARY_LIST_LIMIT} more\n")
+    w("\n")
+
+
 def _summary(meta, name, rows, series, fits, growth, generated, store_path, figures, tables, data, prov,
-             out, exact=None) -> str:
+             out, exact=None, invalid=(), left_out=(), certs=()) -> str:
     b = io.StringIO()
     w = b.write
     w(f"# Study `{name}`\n\n")
@@ -828,13 +971,26 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
       f"tol {settings.get('tol', '?')}, max_iters {settings.get('max_iters')}. "
       f"Growth variable `{growth}`" + (f", series by `{meta['series']}`" if meta.get("series") else "") + ".\n\n")
     ok = [r for r in rows if r.success]
-    bad = [r for r in rows if r.failed]
-    w(f"{len(rows)} stored points: {len(ok)} with verified bounds, {len(bad)} failed or unverified.\n\n")
+    bad = [r for r in rows if r.failed and not r.invalid]
+    n_invalid = sum(1 for r in rows if r.invalid)
+    w(f"{len(rows)} stored points: {len(ok)} with verified bounds, {len(bad)} failed or unverified"
+      + (f", {n_invalid} with invalid input" if n_invalid else "") + ".\n\n")
     if bad:
         w("Failed or unverified points (their numbers are not used):\n\n")
         for r in bad:
             w(f"* `{json.dumps(r.params, sort_keys=True)}` {r.bound}: {r.status} — {r.error or r.message}\n")
         w("\n")
+    if invalid:
+        w("Invalid points (the instance cannot be built there; fix the instance, then rerun the study):\n\n")
+        _listing(w, [f"`{json.dumps(p, sort_keys=True)}` ({', '.join(what)}): {msg}" for p, msg, what in invalid])
+    other = [m for m in left_out if m not in certs and "certificate that is missing" not in m]
+    if other:
+        w("Stored rows left out because they are not as advbound writes them (edited by hand?):\n\n")
+        _listing(w, [f"`{m}`" for m in other])
+    if certs:
+        w("Rows whose certificate cannot be found from the store's folder (their numbers were verified "
+          "when written, but cannot be rechecked from here):\n\n")
+        _listing(w, [f"`{m}`" for m in certs])
     for s in series:
         w(f"### {s.label}\n\n| {growth} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|\n")
         for t, lo, up, d in zip(s.T, s.lower, s.upper, s.domain_size):

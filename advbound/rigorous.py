@@ -14,8 +14,12 @@ exact fraction-free LDLᵀ).  Typical call::
 The recipe (``tools/recheck_certificate.py`` implements the same steps independently
 and must produce the same rational):
 
+0. The certificate satisfies the acceptance rule (:func:`advbound.certificate.check_acceptance`);
+   otherwise :class:`~advbound.errors.CertificateError` is raised and nothing is certified.
 1. ``G = (Γ + Γᵀ)/2`` in float64; entries with ``f(x) = f(y)`` set to 0 (for a
-   certificate of the positive bound, negative entries are also set to 0).
+   certificate of the positive bound, negative entries are also set to 0).  For a file these
+   are no-ops (the rule requires them already); an in-memory Γ is repaired this way and its
+   residue reported by the checks ``equal_outputs``, ``symmetric`` and ``nonnegative``.
 2. Denominator ``Q``: the given integer, or ``2**max(0, B - e)`` where
    ``max|G| < 2**e`` (``math.frexp``) and ``B = 28`` bits; ``N = rint(Q·G)`` as int64, and
    ``Γ_q = N / Q`` is the rational adversary matrix that is actually certified.  It is
@@ -79,6 +83,7 @@ from fractions import Fraction
 import numpy as np
 import scipy.sparse as sp
 
+from .certificate import BOUNDS, check_acceptance, cleaned
 from .errors import CertificateError
 
 __all__ = [
@@ -633,14 +638,24 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
     Returns
     -------
     RigorousReport
+
+    Raises
+    ------
+    CertificateError
+        When ``cert`` (Γ cleaned by :func:`advbound.certificate.cleaned`) breaks the acceptance
+        rule of :func:`advbound.certificate.check_acceptance`; a file read by
+        :func:`advbound.certificate.load_certificate` has been held to it exactly already.
     """
     t0 = time.perf_counter()
     if method not in ("auto", "ldl", "cholesky", "residual"):
         raise ValueError(f"method must be 'auto', 'ldl', 'cholesky' or 'residual', got {method!r}")
     if not safety > 0:
         raise ValueError(f"safety must be positive, got {safety!r}")
-    meta = dict(cert.metadata or {})
+    check_acceptance(cleaned(cert), "certificate")
+    meta = dict(cert.metadata)
     bound = bound or meta.get("bound", "general")
+    if bound not in BOUNDS:
+        raise CertificateError(f"bound must be 'general' or 'positive', got {bound!r}")
     size, n = len(cert.inputs), len(cert.costs)
     if size > MAX_DENSE:
         raise CertificateError(f"rigorous verification handles at most {MAX_DENSE} inputs, got {size}")

@@ -42,7 +42,8 @@ log = logging.getLogger("advbound")
 
 #: method name -> (module, function) for the methods implemented outside this module.
 _DISPATCH = {"symmetric": ("advbound.symmetric", "solve_symmetric"),
-             "factored": ("advbound.factored", "solve_factored")}
+             "factored": ("advbound.factored", "solve_factored"),
+             "rows": ("advbound.rowsym", "solve_rows")}
 METHODS = ("dense",) + tuple(_DISPATCH)
 
 #: Γ support thresholds tried by :func:`solve`; each gives a valid lower bound, the best is kept.
@@ -60,7 +61,8 @@ def check_solvable(f: PartialFunction, bound: str) -> None:
 
 def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float | None = None,
           max_iters: int | None = None, verbose: bool = False, with_dual: bool = True, method: str = "dense",
-          dual_source: str = "multipliers", repair_tol: float = 1e-2, **options) -> SolveResult:
+          dual_source: str = "multipliers", repair_tol: float = 1e-2, allow_large: bool = False,
+          **options) -> SolveResult:
     """Solve the adversary program of ``f`` and return verified bounds.
 
     Parameters
@@ -79,11 +81,18 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
         Let the solver print progress.
     with_dual : bool
         Also verify a dual witness and report ``upper``.
-    method : {"dense", "symmetric", "factored"}
+    method : {"dense", "symmetric", "factored", "rows"}
+        ``"rows"``: the S_n-reduced program of interchangeable rows (:mod:`advbound.rowsym`).
     dual_source : {"multipliers", "program"}
         Where the dual witness comes from (see :mod:`advbound.sdp`).
     repair_tol : float
         Largest relative cost of repairing the dual witness (see :mod:`advbound.verify`).
+    allow_large : bool
+        With ``method="dense"``, the memory of the whole solve is estimated first
+        (:func:`advbound.sizing.solve_estimate`) and a program that needs more than this
+        machine has available (:func:`advbound.sizing.memory_budget`) is refused before
+        anything is built; ``True`` only logs the estimate.  The other methods size
+        themselves.
     **options
         Passed to the solver; unknown ones emit :class:`~advbound.errors.AdvboundWarning`.
 
@@ -100,9 +109,11 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
         For a constant function, an unknown ``bound`` or ``method``.
     SolverError
         When the solver is unsupported or not installed.
+    advbound.sizing.TooLargeError
+        When the dense program does not fit in memory and ``allow_large`` is false.
     """
     if tol is None:
-        tol = 1e-4 if method == "factored" else 1e-7
+        tol = {"factored": 1e-4, "rows": 1e-8}.get(method, 1e-7)
     if method in _DISPATCH:
         check_solvable(f, bound)
         modname, funcname = _DISPATCH[method]
@@ -119,6 +130,7 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     if method != "dense":
         raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
     check_solvable(f, bound)
+    _check_size(f, bound, solver, allow_large)
     from . import sdp
     from .verify import extract_gamma, verify_certificate
 
@@ -178,6 +190,15 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     log.info("solve %s: %s lower=%s upper=%s", f.description or "function", st, lower, upper)
     return SolveResult(message=msg, status=st, lower=lower, upper=upper, certificate=cert, verification=rep,
                        **base)
+
+
+def _check_size(f, bound, solver, allow_large) -> None:
+    """Refuse a dense program whose estimated memory exceeds the budget (see :mod:`advbound.sizing`)."""
+    from .sizing import check_memory, solve_estimate
+
+    hint = "or use method 'factored' (--method factored), which is built for large two-output functions" \
+        if f.is_boolean else ""
+    check_memory(solve_estimate(f, bound, solver), allow_large=allow_large, hint=hint)
 
 
 def _metadata(f, bound, raw, tol, max_iters, method, dual_source) -> dict:

@@ -15,6 +15,7 @@ __all__ = [
     "INFEASIBLE",
     "FAILED",
     "UNVERIFIED",
+    "INVALID",
     "SUCCESS",
     "MESSAGES",
     "CVXPY_STATUS_MAP",
@@ -33,6 +34,8 @@ INFEASIBLE = "infeasible"
 FAILED = "failed"
 #: A point came back but an independent check failed; its numbers must not be used.
 UNVERIFIED = "unverified"
+#: The input of a point could not be built (e.g. a row length below 1 at some grid point); fix the instance.
+INVALID = "invalid"
 
 #: Statuses whose verified numbers may be reported.
 SUCCESS = frozenset({OPTIMAL, INACCURATE})
@@ -43,6 +46,7 @@ MESSAGES = {
     INFEASIBLE: "solver reported infeasibility, which the adversary programs never are; try another solver",
     FAILED: "solver failed to return a usable point; try another solver or looser tolerances",
     UNVERIFIED: "a returned point failed independent verification; its numbers are not bounds",
+    INVALID: "the instance could not be built at this point; fix the instance (retrying cannot help)",
 }
 
 #: cvxpy's status strings mapped onto ours.  Nothing else inspects solver statuses.

@@ -8,8 +8,13 @@ bounds a study may ask for exact t-query points (``exact = {queries = [1, 2]}``
 and/or ``exact = {error = 0.1, max_queries = 4}``, solved with
 :mod:`advbound.exact`), stored as rows of kind ``"exact"``.
 Workers compute and return; only the calling process writes certificates and
-rows (see :mod:`advbound.store`).  The library never prints: progress goes to an
-optional callback object.
+rows (see :mod:`advbound.store`).  Several sweeps may run on one store at once:
+each claims a point (a lease in the store) before computing it, so every point is
+computed once.  A grid point whose instance cannot be built is stored with status
+``invalid`` and its one-line message (fix the instance; retrying cannot help).
+Certificate paths are recorded relative to the store's folder, so the certificate
+directory must lie inside that folder.  The library never prints: progress goes to
+an optional callback object.
 
 Typical call::
 
@@ -24,18 +29,25 @@ Typical call::
 
 from __future__ import annotations
 
+import collections
+import contextlib
 import dataclasses
+import hashlib
 import json
 import logging
+import math
 import os
 import re
 import time
 import traceback
+import uuid
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
+from . import status as _status
 from .errors import AdvboundError, InvalidInstanceError
-from .store import ERROR_STATUS, Store, StoredRow, make_row, package_versions, run_key
+from .store import (BOUND_SLACK, DEFAULT_LEASE, ERROR_STATUS, LeaseHolder, LeaseKeeper, RowState, Store, StoredRow,
+                    make_row, package_versions, run_key)
 
 __all__ = ["StudySpec", "Point", "StudyRun", "Progress", "load_study", "default_study_path", "plan",
            "solver_settings", "exact_settings", "solve_point", "run_study", "study_meta", "KIND", "EXACT_KIND",
@@ -127,7 +139,9 @@ class Point:
     """One unit of work: an instance's parameters and one bound (or one exact request), with its keys.
 
     For ``kind == "exact"`` points ``bound`` is ``None`` and ``request`` holds the exact settings
-    (:func:`exact_settings`): ``queries`` (one t) or ``error`` and ``max_queries``.
+    (:func:`exact_settings`): ``queries`` (one t) or ``error`` and ``max_queries``.  ``invalid`` is the
+    one-line message when the instance cannot be resolved at this grid point (then ``spec_key`` is
+    a hash of the instance template and the parameters).
     """
 
     index: int
@@ -138,6 +152,7 @@ class Point:
     spec: dict
     kind: str = KIND
     request: dict | None = None
+    invalid: str | None = None
 
     @property
     def what(self) -> str:
@@ -155,8 +170,10 @@ class Point:
 
 @dataclasses.dataclass(frozen=True)
 class StudyRun:
-    """What :func:`run_study` did: numbers of points planned, skipped (already stored), solved
-    successfully and failed in this run, the rows written, and the store path."""
+    """What :func:`run_study` did: numbers of points planned, skipped (already stored, or stored by
+    another process meanwhile), solved successfully and failed in this run, the rows written, and the
+    store path; ``invalid`` counts the points of this run whose input is invalid, ``held`` lists the
+    points left to another live process as ``(Point, Lease)``."""
 
     name: str
     store: str
@@ -165,11 +182,13 @@ class StudyRun:
     solved: int
     failed: int
     rows: tuple = ()
+    invalid: int = 0
+    held: tuple = ()
 
     @property
     def ok(self) -> bool:
-        """True when nothing failed in this run."""
-        return self.failed == 0
+        """True when nothing failed and no input was invalid in this run."""
+        return self.failed == 0 and self.invalid == 0
 
 
 class Progress:
@@ -183,6 +202,9 @@ class Progress:
 
     def done(self, point: Point, row: StoredRow) -> None:
         """Called after ``point``'s row was committed."""
+
+    def skip(self, point: Point, why: str) -> None:
+        """Called for a planned point this run leaves to another process (``why`` says which)."""
 
 
 def _err(path, msg):
@@ -382,24 +404,46 @@ def _jsonable(obj):
     return json.loads(json.dumps(obj, default=str)) if obj is not None else None
 
 
+def _invalid_key(study: StudySpec, params: dict) -> str:
+    """Hash standing in for the spec hash of a grid point whose instance cannot be resolved:
+    the raw instance template and the parameters (it changes whenever the template does)."""
+    inst = getattr(study.instance, "instance", None)
+    doc = {"invalid": True, "instance": _jsonable(inst), "params": _jsonable(params)}
+    return hashlib.sha256(json.dumps(doc, sort_keys=True, default=str).encode()).hexdigest()
+
+
 def plan(study: StudySpec, api=None) -> list[Point]:
     """Every point of the study in a fixed order: grid points (in :func:`grid_points` order) × (bounds,
-    then the exact requests of :func:`exact_settings`)."""
+    then the exact requests of :func:`exact_settings`).
+
+    A grid point whose instance cannot be resolved (an :class:`~advbound.errors.AdvboundError`, e.g.
+    a row length below 1 at small T) still gives its points, with ``invalid`` set to the one-line
+    message; they are stored with status ``invalid`` and never computed.
+    """
     from . import __version__
     api = api or _instance_api()
     settings = solver_settings(study)
     points = []
     for params in api.grid_points(study.instance):
         params = dict(params)
-        key = api.spec_key(study.instance, params)
-        spec = api.resolved(study.instance, params)
+        invalid = None
+        try:
+            key = api.spec_key(study.instance, params)
+            spec = api.resolved(study.instance, params)
+        except AdvboundError as err:
+            invalid = _one_line(err)
+            key, spec = _invalid_key(study, params), {"params": params}
         for bound in study.bounds:
             rk = run_key(KIND, key, bound, settings, __version__)
-            points.append(Point(len(points), params, bound, key, rk, spec))
+            points.append(Point(len(points), params, bound, key, rk, spec, invalid=invalid))
         for req in exact_settings(study):
             rk = run_key(EXACT_KIND, key, None, req, __version__)
-            points.append(Point(len(points), params, None, key, rk, spec, EXACT_KIND, req))
+            points.append(Point(len(points), params, None, key, rk, spec, EXACT_KIND, req, invalid=invalid))
     return points
+
+
+def _one_line(err: BaseException) -> str:
+    return " ".join(str(err).split()) or type(err).__name__
 
 
 def solve_point(task: dict) -> dict:
@@ -407,29 +451,37 @@ def solve_point(task: dict) -> dict:
 
     ``task`` has ``instance`` (an InstanceSpec), ``params``, ``bound`` and ``settings``
     (:func:`solver_settings`).  Returns a dict with ``ok``; on success ``result``
-    (``SolveResult.to_dict()``), ``certificate`` (or ``None``); on failure ``error``;
-    always ``time_total`` (s) and ``versions``.  A task with ``kind == "exact"`` carries the
+    (``SolveResult.to_dict()``), ``certificate`` (or ``None``); on failure ``error``, and
+    ``invalid = True`` when building the instance raised an
+    :class:`~advbound.errors.AdvboundError` (the input is wrong, not the solver); always
+    ``time_total`` (s) and ``versions``.  A task with ``kind == "exact"`` carries the
     request (one entry of :func:`exact_settings`) as ``settings`` and returns ``exact``
     (``ExactResult.to_dict()``) instead of ``result``.
     """
     t0 = time.perf_counter()
     try:
-        from .instance import build_instance
-        s = task["settings"]
-        f = build_instance(task["instance"], task["params"])
-        if task.get("kind") == EXACT_KIND:
-            out = {"ok": True, "exact": _solve_exact(f, s).to_dict()}
-        else:
-            from .solve import solve
-            res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
-                        method=s["method"], **s["options"])
-            out = {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
+        out = _compute(task)
     except Exception as err:  # a failing point is data, recorded by the parent
         tb = traceback.format_exception_only(type(err), err)[-1].strip()
         out = {"ok": False, "error": tb}
     out["time_total"] = time.perf_counter() - t0
     out["versions"] = package_versions()
     return out
+
+
+def _compute(task: dict) -> dict:
+    from .instance import build_instance
+    s = task["settings"]
+    try:
+        f = build_instance(task["instance"], task["params"])
+    except AdvboundError as err:
+        return {"ok": False, "invalid": True, "error": _one_line(err)}
+    if task.get("kind") == EXACT_KIND:
+        return {"ok": True, "exact": _solve_exact(f, s).to_dict()}
+    from .solve import solve
+    res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
+                method=s["method"], **s["options"])
+    return {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
 
 
 def _solve_exact(f, s: dict):
@@ -444,55 +496,82 @@ def _safe(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.=-]+", "_", text)[:80]
 
 
-def _record(store: Store, study: StudySpec, point: Point, out: dict) -> StoredRow:
-    """Write the certificate (temp file, then rename) and then the row (one transaction)."""
-    if point.kind == EXACT_KIND:
-        return _record_exact(store, study, point, out)
-    from .certificate import save_certificate
-    cert_path = None
-    common = dict(kind=KIND, spec_key=point.spec_key, spec=point.spec, params=point.params, bound=point.bound,
-                  study=study.name, solver=solver_settings(study), versions=out.get("versions", {}),
-                  time_total=out.get("time_total"))
+def _common(study: StudySpec, point: Point, out: dict) -> dict:
+    exact = point.kind == EXACT_KIND
+    return dict(kind=point.kind, spec_key=point.spec_key, spec=point.spec, params=point.params,
+                bound=None if exact else point.bound, study=study.name,
+                solver=dict(point.request or {}) if exact else solver_settings(study),
+                versions=out.get("versions", {}), time_total=out.get("time_total"))
+
+
+def _failed_row(point: Point, out: dict, common: dict) -> StoredRow:
+    if out.get("invalid"):
+        return make_row(point.run_key, status=_status.INVALID, message=str(out.get("error")), **common)
+    return make_row(point.run_key, status=ERROR_STATUS, message="the computation raised an exception",
+                    error=str(out.get("error", "unknown error")), **common)
+
+
+def _record(store: Store, study: StudySpec, point: Point, out: dict, holder: LeaseHolder | None = None
+            ) -> StoredRow:
+    """Write the certificate (temp file, then rename) and then the row (one transaction, which also
+    releases ``holder``'s lease on the point)."""
+    common = _common(study, point, out)
     if not out.get("ok"):
-        row = make_row(point.run_key, status=ERROR_STATUS, message="the computation raised an exception",
-                       error=str(out.get("error", "unknown error")), **common)
-        store.put(row)
-        return row
+        row = _failed_row(point, out, common)
+    elif point.kind == EXACT_KIND:
+        row = _exact_row(point, out["exact"], common)
+    else:
+        row = _adversary_row(store, study, point, out, common)
+    store.put(row, release=holder)
+    return row
+
+
+def _consistent(status: str, message, lower, upper):
+    """A success status whose verified lower bound exceeds its verified upper bound is a contradiction."""
+    if status in _status.SUCCESS and lower is not None and upper is not None and \
+            lower > upper + BOUND_SLACK * max(1.0, abs(upper)):
+        return _status.UNVERIFIED, f"verified lower {lower!r} exceeds verified upper {upper!r}"
+    return status, message
+
+
+def _adversary_row(store: Store, study: StudySpec, point: Point, out: dict, common: dict) -> StoredRow:
+    from .certificate import save_certificate
     res = out["result"]
     cert = out.get("certificate")
+    cert_path = None
     if cert is not None:
-        os.makedirs(study.certificates, exist_ok=True)
         final = os.path.join(study.certificates, f"{_safe(point.label)}-{point.run_key[:12]}.npz")
         tmp = os.path.join(study.certificates, f".{point.run_key[:12]}.{os.getpid()}.tmp")
-        save_certificate(cert, tmp)
-        os.replace(tmp, final)
-        cert_path = os.path.abspath(final)
+        try:
+            os.makedirs(study.certificates, exist_ok=True)
+            save_certificate(cert, tmp)
+            os.replace(tmp, final)
+        except OSError as err:
+            raise AdvboundError(f"{final}: cannot write the certificate ({err.strerror or err})") from None
+        cert_path = os.path.relpath(os.path.abspath(final), store.folder)
     solver = res.get("solver", {})
     values = {"relative_gap": res.get("relative_gap"), "success": res.get("success"),
               "solver_stats": solver}
-    row = make_row(point.run_key, status=res["status"], message=res.get("message"), lower=res.get("lower"),
-                   upper=res.get("upper"), objective=res.get("objective"), domain_size=res.get("domain_size"),
-                   values=values, time_solve=solver.get("time"), certificate=cert_path, **common)
-    store.put(row)
-    return row
+    status, message = _consistent(res["status"], res.get("message"), _num(res.get("lower")), _num(res.get("upper")))
+    return make_row(point.run_key, status=status, message=message, lower=res.get("lower"),
+                    upper=res.get("upper"), objective=res.get("objective"), domain_size=res.get("domain_size"),
+                    values=values, time_solve=solver.get("time"), certificate=cert_path, **common)
 
 
-def _record_exact(store: Store, study: StudySpec, point: Point, out: dict) -> StoredRow:
+def _exact_row(point: Point, d: dict, common: dict) -> StoredRow:
     """The row of an exact point: lower/upper = verified achievable success / verified upper bound."""
-    common = dict(kind=EXACT_KIND, spec_key=point.spec_key, spec=point.spec, params=point.params, bound=None,
-                  study=study.name, solver=dict(point.request or {}), versions=out.get("versions", {}),
-                  time_total=out.get("time_total"))
-    if not out.get("ok"):
-        row = make_row(point.run_key, status=ERROR_STATUS, message="the computation raised an exception",
-                       error=str(out.get("error", "unknown error")), **common)
-    else:
-        d = out["exact"]
-        row = make_row(point.run_key, status=d["status"], message=d.get("message"),
-                       lower=d.get("success_probability"), upper=d.get("upper_bound"), objective=d.get("objective"),
-                       domain_size=d.get("domain_size"), values=d, time_solve=(d.get("solver") or {}).get("time"),
-                       **common)
-    store.put(row)
-    return row
+    status, message = _consistent(d["status"], d.get("message"), _num(d.get("success_probability")),
+                                  _num(d.get("upper_bound")))
+    return make_row(point.run_key, status=status, message=message, lower=d.get("success_probability"),
+                    upper=d.get("upper_bound"), objective=d.get("objective"), domain_size=d.get("domain_size"),
+                    values=d, time_solve=(d.get("solver") or {}).get("time"), **common)
+
+
+def _num(v):
+    try:
+        return None if v is None else float(v)
+    except (TypeError, ValueError):
+        return None
 
 
 def _remove_stale_temporaries(directory: str) -> int:
@@ -513,15 +592,25 @@ def _remove_stale_temporaries(directory: str) -> int:
         except PermissionError:
             alive = True
         if not alive:
-            os.remove(os.path.join(directory, fn))
-            removed += 1
+            with contextlib.suppress(FileNotFoundError):
+                os.remove(os.path.join(directory, fn))
+                removed += 1
     return removed
+
+
+def _check_certificate_folder(study: StudySpec, store: Store) -> None:
+    """Certificates are recorded relative to the store's folder, so they must live inside it."""
+    cert_dir = os.path.abspath(study.certificates)
+    if os.path.commonpath([store.folder, cert_dir]) != store.folder:
+        raise AdvboundError(f"certificate directory {study.certificates} is not inside the folder of the store "
+                            f"{store.path} ({store.folder}); certificates are recorded relative to it, so "
+                            "choose a certificate directory inside that folder")
 
 
 def run_study(study: StudySpec, *, store: Store | None = None, jobs: int = 1, scheduler=None,
               retry_failed: bool = False, progress: Progress | None = None,
               runner: Callable[[dict], dict] | None = None, api=None, points: Sequence[Point] | None = None,
-              ) -> StudyRun:
+              lease: float = DEFAULT_LEASE, wait: bool = False) -> StudyRun:
     """Solve every point of ``study`` not yet in the store; return a :class:`StudyRun`.
 
     Parameters
@@ -534,81 +623,242 @@ def run_study(study: StudySpec, *, store: Store | None = None, jobs: int = 1, sc
     scheduler : str or dask.distributed.Client, optional
         Address of a dask scheduler (or a client) to submit the points to instead.
     retry_failed : bool
-        Also recompute points whose stored row failed (default: keep them).
+        Also recompute points whose stored computation failed (default: keep them).  Points
+        stored as ``invalid`` are not retried: their instance must change first.
     progress : Progress, optional
-        Receives ``start``, ``begin`` and ``done`` calls.
+        Receives ``start``, ``begin``, ``done`` and ``skip`` calls.
     runner : callable, optional
         The per-point function (default :func:`solve_point`); must be picklable for pools/clusters.
     api : module, optional
         Provider of the instance functions (default :mod:`advbound.instance`).
     points : sequence of Point, optional
         Use these instead of :func:`plan`.
+    lease : float
+        Lease duration in seconds (see :mod:`advbound.store`); renewed every third of it.
+    wait : bool
+        Wait for points that another live process holds, and compute those whose lease
+        expires (default: skip them, after one last look once everything else is done).
 
     Notes
     -----
-    Each point's row is committed on its own, after its certificate file is in place; an
-    interrupted run loses at most the points in flight, and a rerun continues where it stopped.
-    On ``KeyboardInterrupt`` pending work is cancelled and the exception propagates.
+    Each point is claimed (a lease in the store) before it is computed, so several sweeps on
+    one store share the work.  Each point's row is committed on its own, after its certificate
+    file is in place, and releases the lease; an interrupted run loses at most the points in
+    flight, and a rerun continues where it stopped.  On ``KeyboardInterrupt`` pending work is
+    cancelled, the leases are released and the exception propagates.
     """
     if jobs < 1:
         raise AdvboundError(f"jobs must be at least 1, got {jobs}")
+    if not (isinstance(lease, (int, float)) and math.isfinite(lease) and lease > 0):
+        raise AdvboundError(f"lease must be a positive number of seconds, got {lease!r}")
     progress = progress or Progress()
     runner = runner or solve_point
     own = store is None
     store = store or Store(study.store)
+    holder = LeaseHolder.current()
+    keeper = None
     try:
         store.set_meta("study", study_meta(study))
-        if _remove_stale_temporaries(study.certificates):
-            log.info("removed unfinished certificate files of an interrupted run")
         pts = list(points) if points is not None else plan(study, api)
-        known = store.keys()
-        todo = [p for p in pts if p.run_key not in known or (retry_failed and not known[p.run_key])]
-        skipped = len(pts) - len(todo)
+        states = store.states()
+        stale = _stale_invalid(store, pts, study.name)
+        if stale:
+            store.delete(stale)
+            log.info("%s: removed %d invalid row(s) of points whose instance has changed", store.path, len(stale))
+        rows: list[StoredRow] = []
+        for p in pts:
+            if p.invalid is not None:
+                rows.append(_record_invalid_plan(store, study, p, states.get(p.run_key)))
+        todo = []
+        for p in pts:
+            s = states.get(p.run_key)
+            if p.invalid is None and (s is None or s.state == "defective" or (retry_failed and s.state == "failed")):
+                todo.append((p, None if s is None else s.seen))
+        invalid_planned = sum(1 for p in pts if p.invalid is not None)
+        skipped = len(pts) - len(todo) - invalid_planned
         progress.start(len(todo), skipped)
-        settings = solver_settings(study)
-        tasks = [(p, {"instance": study.instance, "params": p.params, "bound": p.bound, "kind": p.kind,
-                      "settings": settings if p.kind != EXACT_KIND else dict(p.request or {})})
-                 for p in todo]
-        rows = []
+        held: list = []
+        others = 0
+        if todo:
+            _check_certificate_folder(study, store)
+            if _remove_stale_temporaries(study.certificates):
+                log.info("removed unfinished certificate files of an interrupted run")
+            settings = solver_settings(study)
 
-        def finish(p, out):
-            row = _record(store, study, p, out)
-            rows.append(row)
-            progress.done(p, row)
+            def task_of(p):
+                return {"instance": study.instance, "params": p.params, "bound": p.bound, "kind": p.kind,
+                        "settings": settings if p.kind != EXACT_KIND else dict(p.request or {})}
 
-        if scheduler is not None:
-            _run_dask(tasks, runner, scheduler, progress, finish)
-        elif jobs > 1 and len(tasks) > 1:
-            _run_pool(tasks, runner, jobs, progress, finish)
-        else:
-            for p, task in tasks:
-                progress.begin(p)
-                finish(p, runner(task))
-        failed = sum(1 for r in rows if r.failed)
-        return StudyRun(study.name, store.path, len(pts), skipped, len(rows) - failed, failed, tuple(rows))
+            def finish(p, out):
+                row = _record(store, study, p, out, holder)
+                rows.append(row)
+                progress.done(p, row)
+
+            keeper = LeaseKeeper(store, holder, lease)
+            executor = _executor(scheduler, jobs, len(todo), runner)
+            if isinstance(executor, _Inline):
+                keeper.start()
+            try:
+                held, others = _drive(todo, store, holder, lease, executor, keeper, task_of, progress, finish,
+                                      wait)
+            finally:
+                executor.close()
+        computed = [r for r in rows if not r.invalid]
+        failed = sum(1 for r in computed if r.failed)
+        return StudyRun(study.name, store.path, len(pts), skipped + others, len(computed) - failed, failed,
+                        tuple(rows), invalid=sum(1 for r in rows if r.invalid),
+                        held=tuple((p, ls) for p, _, ls in held))
     finally:
+        if keeper is not None:
+            keeper.stop()
+        with contextlib.suppress(AdvboundError):
+            store.release(holder)
         if own:
             store.close()
 
 
-def _run_pool(tasks, runner, jobs, progress, finish):
-    import concurrent.futures as cf
-    import multiprocessing as mp
-    ctx = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
-    ex = cf.ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
-    futs = {}
-    try:
-        for p, task in tasks:
-            futs[ex.submit(runner, task)] = p
-            progress.begin(p)
-        for fut in cf.as_completed(futs):
-            finish(futs[fut], _outcome(fut))
-    except BaseException:
-        for fut in futs:
-            fut.cancel()
-        ex.shutdown(wait=False, cancel_futures=True)
-        raise
-    ex.shutdown(wait=True)
+def _identity(kind, params, bound, request) -> tuple:
+    what = bound if kind != EXACT_KIND else json.dumps(request or {}, sort_keys=True, default=str)
+    return kind, json.dumps(params, sort_keys=True, default=str), what
+
+
+def _stale_invalid(store: Store, pts: Sequence[Point], name: str) -> list[str]:
+    """Run keys of this study's invalid rows for planned points that now have another run key (their
+    instance changed, e.g. it was fixed): such rows describe an input that no longer exists."""
+    current = {_identity(p.kind, p.params, p.bound, p.request): p.run_key for p in pts}
+    out = []
+    for r in store.rows(study=name):
+        if r.invalid:
+            key = current.get(_identity(r.kind, r.params, r.bound, r.solver if r.kind == EXACT_KIND else None))
+            if key is not None and key != r.run_key:
+                out.append(r.run_key)
+    return out
+
+
+def _record_invalid_plan(store: Store, study: StudySpec, p: Point, state: RowState | None) -> StoredRow:
+    """Store (or refresh) the row of a point whose instance cannot be resolved."""
+    old = store.get(p.run_key) if state is not None and state.state == "invalid" else None
+    if old is not None and old.message == p.invalid:
+        return old
+    row = _failed_row(p, {"invalid": True, "error": p.invalid}, _common(study, p, {"versions": package_versions()}))
+    store.put(row)
+    return row
+
+
+def _drive(todo, store, holder, lease, executor, keeper, task_of, progress, finish, wait):
+    """Claim and compute the points of ``todo`` with at most ``executor.window`` in flight.
+
+    Returns ``(held, others)``: the points left to live holders as ``(point, seen, lease)``, and
+    the number of points another process finished meanwhile.
+    """
+    pending = collections.deque(todo)
+    inflight: dict = {}
+    held: dict = {}
+    others = 0
+    poll = min(1.0, lease / 4.0)
+    last_look = time.monotonic()
+    looked_again = False
+    while True:
+        while pending and len(inflight) < executor.window:
+            p, seen = pending.popleft()
+            c = store.claim(p.run_key, holder, lease, seen)
+            if c.outcome == "stored":
+                others += 1
+                progress.skip(p, "stored by another process")
+            elif c.outcome == "held":
+                held[p.run_key] = (p, seen, c.lease)
+            else:
+                progress.begin(p)
+                inflight[executor.submit(task_of(p))] = p
+        if inflight:
+            for fut in executor.wait(list(inflight), timeout=keeper.period):
+                finish(inflight.pop(fut), executor.outcome(fut))
+            keeper.tick()
+            if wait and held and time.monotonic() - last_look >= poll:
+                pending.extend((p, seen) for p, seen, _ in held.values())
+                held.clear()
+                last_look = time.monotonic()
+            continue
+        if not held:
+            break
+        if not wait:
+            if looked_again:
+                break
+            looked_again = True
+        else:
+            time.sleep(max(0.0, poll - (time.monotonic() - last_look)))
+            keeper.tick()
+        pending.extend((p, seen) for p, seen, _ in held.values())
+        held.clear()
+        last_look = time.monotonic()
+    for p, _, ls in held.values():
+        progress.skip(p, f"held by {ls.describe()}")
+    return list(held.values()), others
+
+
+class _Done:
+    """A finished computation (the in-process executor's future)."""
+
+    def __init__(self, out):
+        self.out = out
+
+
+class _Inline:
+    """Computes each point in this process, at submission."""
+
+    window = 1
+
+    def __init__(self, runner):
+        self.runner = runner
+
+    def submit(self, task):
+        try:
+            return _Done(self.runner(task))
+        except Exception as err:  # a runner that raises is a failed point, as in a pool
+            return _Done({"ok": False, "error": f"{type(err).__name__}: {_one_line(err)}"})
+
+    def wait(self, futs, timeout=None):
+        return futs
+
+    def outcome(self, fut):
+        return fut.out
+
+    def close(self):
+        pass
+
+
+class _Pool:
+    """A local process pool; at most ``jobs`` points in flight (so other sweeps can claim the rest)."""
+
+    def __init__(self, runner, jobs):
+        import concurrent.futures as cf
+        import multiprocessing as mp
+        self.cf = cf
+        ctx = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
+        self.ex = cf.ProcessPoolExecutor(max_workers=jobs, mp_context=ctx)
+        self.runner = runner
+        self.window = jobs
+        self.futs: list = []
+        self.clean = False
+
+    def submit(self, task):
+        fut = self.ex.submit(self.runner, task)
+        self.futs.append(fut)
+        return fut
+
+    def wait(self, futs, timeout=None):
+        return self.cf.wait(futs, timeout=timeout, return_when=self.cf.FIRST_COMPLETED).done
+
+    def outcome(self, fut):
+        return _outcome(fut)
+
+    def close(self):
+        if all(f.done() for f in self.futs):
+            self.ex.shutdown(wait=True)
+        else:
+            for f in self.futs:
+                f.cancel()
+            self.ex.shutdown(wait=False, cancel_futures=True)
 
 
 def _outcome(fut) -> dict:
@@ -618,27 +868,56 @@ def _outcome(fut) -> dict:
         return {"ok": False, "error": f"worker failed: {type(err).__name__}: {err}"}
 
 
-def _run_dask(tasks, runner, scheduler, progress, finish):
-    try:
-        from dask.distributed import Client, as_completed
-    except ImportError:  # pragma: no cover
-        raise AdvboundError("--scheduler needs dask.distributed, which is not installed") from None
-    client = scheduler if isinstance(scheduler, Client) else Client(scheduler)
-    futs = {}
-    try:
-        for p, task in tasks:
-            futs[client.submit(runner, task, pure=False, key=f"advbound-{p.run_key[:16]}-{time.time_ns()}")] = p
-            progress.begin(p)
+class _Dask:
+    """A dask.distributed cluster; as many points in flight as it has worker threads."""
+
+    def __init__(self, runner, scheduler, jobs):
         try:
-            for fut in as_completed(list(futs)):
-                try:
-                    out = fut.result()
-                except Exception as err:
-                    out = {"ok": False, "error": f"worker failed: {type(err).__name__}: {err}"}
-                finish(futs[fut], out)
-        except BaseException:
-            client.cancel(list(futs))
-            raise
-    finally:
-        if client is not scheduler:
-            client.close()
+            from dask.distributed import Client
+        except ImportError:  # pragma: no cover
+            raise AdvboundError("--scheduler needs dask.distributed, which is not installed") from None
+        try:
+            self.client = scheduler if isinstance(scheduler, Client) else Client(scheduler, timeout=30)
+        except (OSError, TimeoutError, ValueError) as err:
+            raise AdvboundError(f"cannot reach the dask scheduler {scheduler!r}: {_one_line(err)}") from None
+        self.own = self.client is not scheduler
+        self.runner = runner
+        try:
+            threads = sum(self.client.nthreads().values())
+        except Exception:  # an unreachable scheduler surfaces on submit
+            threads = 0
+        self.window = max(jobs, threads, 1)
+        self.futs: list = []
+
+    def submit(self, task):
+        fut = self.client.submit(self.runner, task, pure=False, key=f"advbound-{uuid.uuid4().hex}")
+        self.futs.append(fut)
+        return fut
+
+    def wait(self, futs, timeout=None):
+        from dask.distributed import wait as dwait
+        try:
+            return dwait(futs, timeout=timeout, return_when="FIRST_COMPLETED").done
+        except TimeoutError:
+            return set()
+
+    def outcome(self, fut):
+        try:
+            return fut.result()
+        except Exception as err:
+            return {"ok": False, "error": f"worker failed: {type(err).__name__}: {err}"}
+
+    def close(self):
+        pending = [f for f in self.futs if not f.done()]
+        if pending:
+            self.client.cancel(pending)
+        if self.own:
+            self.client.close()
+
+
+def _executor(scheduler, jobs, n, runner):
+    if scheduler is not None:
+        return _Dask(runner, scheduler, jobs)
+    if jobs > 1 and n > 1:
+        return _Pool(runner, jobs)
+    return _Inline(runner)

@@ -62,7 +62,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from .domain import domain as _domain
+from .domain import domain as _domain, symbol_dtype
 from .errors import AdvboundError, InvalidFunctionError
 from .function import Automorphism, PartialFunction
 
@@ -149,9 +149,10 @@ def _identity(n: int, n_sym: int, size: int, n_out: int) -> GroupElement:
     return GroupElement(np.arange(n), np.tile(np.arange(n_sym), (n, 1)), np.arange(size), np.arange(n_out))
 
 
-def _row_codes(symbols: np.ndarray) -> np.ndarray:
-    """One bytes key per row, used to look inputs up."""
-    return np.array([r.tobytes() for r in np.ascontiguousarray(symbols, dtype=np.int8)], dtype=object)
+def _row_codes(symbols: np.ndarray, dtype) -> np.ndarray:
+    """One bytes key per row, used to look inputs up; ``dtype`` must hold every alphabet index
+    (the domain's symbol dtype), so that no index wraps around."""
+    return np.array([r.tobytes() for r in np.ascontiguousarray(symbols, dtype=dtype)], dtype=object)
 
 
 def element_from_automorphism(f: PartialFunction, a: Automorphism, dom=None) -> GroupElement:
@@ -183,8 +184,9 @@ def element_from_automorphism(f: PartialFunction, a: Automorphism, dom=None) -> 
     sym = np.asarray(dom.symbols, dtype=np.int64)
     img = np.empty_like(sym)
     img[:, pos] = np.take_along_axis(rel.T, sym, axis=0) if n else sym
-    lookup = {k: i for i, k in enumerate(_row_codes(sym))}
-    idx = np.array([lookup.get(k, -1) for k in _row_codes(img)], dtype=np.int64)
+    code_dtype = symbol_dtype(n_sym)
+    lookup = {k: i for i, k in enumerate(_row_codes(sym, code_dtype))}
+    idx = np.array([lookup.get(k, -1) for k in _row_codes(img, code_dtype)], dtype=np.int64)
     if (idx < 0).any():
         bad = f.inputs[int(np.flatnonzero(idx < 0)[0])]
         raise InvalidFunctionError(f"automorphism {a.positions} maps input {bad!r} outside the domain")
@@ -265,7 +267,7 @@ def _components(n_points: int, perms: np.ndarray) -> np.ndarray:
         return np.arange(n_points)
     src = np.tile(np.arange(n_points), perms.shape[0])
     dst = perms.reshape(-1)
-    g = sp.coo_matrix((np.ones(src.size, dtype=np.int8), (src, dst)), shape=(n_points, n_points))
+    g = sp.coo_matrix((np.ones(src.size, dtype=np.int32), (src, dst)), shape=(n_points, n_points))
     _, lab = connected_components(g, directed=True, connection="weak")
     return _relabel_first_seen(lab)
 

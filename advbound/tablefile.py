@@ -20,6 +20,12 @@ Format
 
 Errors name the source and line: ``f.tbl:7: input '01x' has length 3, expected 2``.
 
+Files are UTF-8 text (a leading byte-order mark is accepted and ignored).  A file that
+is not UTF-8, holds binary data (NUL or other control bytes), is not a regular file one
+can read to its end (a pipe, a folder) or is larger than :data:`MAX_TABLE_BYTES` is
+refused with one line naming the file and, where known, the line and byte offset.
+:func:`read_text` is the reader, shared with instance files.
+
 >>> f = parse_table("00 0\\n01 1  # a comment\\n10 1\\n11 0\\n")
 >>> f.size, f.alphabet, f.output_counts()
 (4, ('0', '1'), {'0': 2, '1': 2})
@@ -31,13 +37,122 @@ from __future__ import annotations
 
 import math
 import os
+import re
+import stat
 import warnings
 from typing import Iterable
 
 from .errors import AdvboundWarning, InvalidFunctionError
 from .function import PartialFunction
 
-__all__ = ["parse_table", "read_table", "write_table", "write_text", "sort_symbols"]
+__all__ = ["parse_table", "read_table", "write_table", "write_text", "sort_symbols", "read_text",
+           "decode_text", "MAX_TABLE_BYTES"]
+
+#: Largest table file :func:`read_table` reads by default (128 MiB); pass ``max_bytes`` to change it.
+MAX_TABLE_BYTES = 1 << 27
+
+_BOM = b"\xef\xbb\xbf"
+#: Control characters that never occur in text (tab, line feed, vertical tab, form feed and
+#: carriage return are allowed).
+_CONTROL = re.compile("[\x00-\x08\x0e-\x1f\x7f]")
+
+
+def _fmt_bytes(n: int) -> str:
+    for unit, k in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
+        if n >= k:
+            return f"{n / k:.3g} {unit}"
+    return f"{n} bytes"
+
+
+def _line_of(text: str, index: int) -> int:
+    """1-based line number of character ``index``, counted like :meth:`str.splitlines`."""
+    return len((text[:index] + "x").splitlines())
+
+
+def decode_text(data: bytes, source: str, error: type = InvalidFunctionError, *, binary_ok: bool = False) -> str:
+    """UTF-8 text of ``data`` (a leading byte-order mark is dropped).
+
+    Raises ``error`` with one line naming ``source``, the line and the byte offset when ``data``
+    is not UTF-8 or (unless ``binary_ok``) holds a control character other than whitespace.
+
+    >>> decode_text(b"\\xef\\xbb\\xbf0 0\\n", "f.tbl")
+    '0 0\\n'
+    >>> decode_text(b"0 0\\n1\\xe9 1\\n", "f.tbl")
+    Traceback (most recent call last):
+    ...
+    advbound.errors.InvalidFunctionError: f.tbl:2: not UTF-8 text (byte 0xe9 at offset 5); save the file as UTF-8
+    """
+    skip = len(_BOM) if data.startswith(_BOM) else 0
+    try:
+        text = data[skip:].decode("utf-8")
+    except UnicodeDecodeError as e:
+        offset = skip + e.start
+        line = data.count(b"\n", 0, offset) + 1
+        raise error(f"{source}:{line}: not UTF-8 text (byte 0x{data[offset]:02x} at offset {offset}); "
+                    "save the file as UTF-8") from None
+    if not binary_ok:
+        bad = _CONTROL.search(text)
+        if bad is not None:
+            i = bad.start()
+            offset = skip + len(text[:i].encode("utf-8"))
+            what = "a NUL byte" if text[i] == "\x00" else f"control character U+{ord(text[i]):04X}"
+            raise error(f"{source}:{_line_of(text, i)}: binary data ({what} at offset {offset}); "
+                        "not a text file")
+    return text
+
+
+def read_text(path: str | os.PathLike, *, max_bytes: int | None, error: type = InvalidFunctionError,
+              what: str = "table file", override: str = "max_bytes", binary_ok: bool = False) -> str:
+    """Read a UTF-8 text file of at most ``max_bytes`` bytes (``None``: no limit).
+
+    At most ``max_bytes + 1`` bytes are ever read, whatever the file claims to be, so a
+    device such as ``/dev/zero`` is refused at once.  Pipes and sockets (which could block)
+    and folders are refused; so is anything :func:`decode_text` refuses.
+
+    Parameters
+    ----------
+    path : path-like
+        The file.
+    max_bytes : int or None
+        The size limit.
+    error : type
+        The :class:`~advbound.errors.AdvboundError` subclass raised (one line naming the file).
+    what, override : str
+        Words for the messages: what the file is, and the name of the setting that raises the limit.
+    binary_ok : bool
+        Accept control characters (only the UTF-8 check is made).
+    """
+    path = os.fspath(path)
+    a_what = ("an " if what[:1] in "aeiou" else "a ") + what
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise error(f"{path}: no such file") from None
+    except OSError as e:
+        raise error(f"{path}: cannot read the {what}: {e.strerror or e}") from None
+    if stat.S_ISDIR(st.st_mode):
+        raise error(f"{path}: is a folder, not {a_what}")
+    if stat.S_ISFIFO(st.st_mode) or stat.S_ISSOCK(st.st_mode):
+        raise error(f"{path}: is a pipe or socket, not a regular file; {a_what} must be a file")
+
+    limit = f"the limit of {_fmt_bytes(max_bytes)} for {what}s" if max_bytes is not None else ""
+    if max_bytes is not None and stat.S_ISREG(st.st_mode) and st.st_size > max_bytes:
+        raise error(f"{path}: the file has {_fmt_bytes(st.st_size)}, more than {limit} (raise it with {override})")
+    try:
+        with open(path, "rb") as fh:
+            data = fh.read() if max_bytes is None else fh.read(max_bytes + 1)
+    except OSError as e:
+        raise error(f"{path}: cannot read the {what}: {e.strerror or e}") from None
+    if max_bytes is not None and len(data) > max_bytes:
+        raise error(f"{path}: larger than {limit} (reading stopped there; raise it with {override})")
+    return decode_text(data, path, error, binary_ok=binary_ok)
+
+
+def _short(x: str, limit: int = 40) -> str:
+    """``repr(x)``, cut in the middle when long (error messages stay one readable line)."""
+    if len(x) <= limit:
+        return repr(x)
+    return repr(x[:limit // 2]) + f"...({len(x)} characters)..." + repr(x[-(limit // 4):])
 
 
 def sort_symbols(symbols: Iterable[str]) -> tuple[str, ...]:
@@ -131,18 +246,19 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
         if n is None:
             n, first_line = len(x), lineno
         elif len(x) != n:
-            raise err(lineno, f"input {x!r} has length {len(x)}, expected {n} (line {first_line})")
+            raise err(lineno, f"input {_short(x)} has length {len(x)}, expected {n} (line {first_line})")
         if alphabet is not None:
             if drop_known is None:
                 drop_known = str.maketrans({s: None for s in alphabet})
             if x.translate(drop_known):
                 j, ch = next((j, ch) for j, ch in enumerate(x) if ch not in alphabet)
-                raise err(lineno, f"input {x!r} has symbol {ch!r} at position {j + 1}, "
+                raise err(lineno, f"input {_short(x)} has symbol {ch!r} at position {j + 1}, "
                                   f"not in alphabet {''.join(alphabet)!r}")
         prev = seen.get(x)
         if prev is not None:
             if prev[0] != y:
-                raise err(lineno, f"input {x!r} already has output {prev[0]!r} (line {prev[1]}), now {y!r}")
+                raise err(lineno, f"input {_short(x)} already has output {_short(prev[0])} (line {prev[1]}), "
+                                  f"now {_short(y)}")
             duplicates.append(lineno)
             continue
         seen[x] = (y, lineno)
@@ -176,11 +292,24 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
         raise InvalidFunctionError(f"{source}: {e}") from None
 
 
-def read_table(path: str | os.PathLike) -> PartialFunction:
-    """Read a table file (see the module docstring); errors name the file and line."""
+def read_table(path: str | os.PathLike, *, max_bytes: int | None = MAX_TABLE_BYTES) -> PartialFunction:
+    """Read a table file (see the module docstring); errors name the file and line.
+
+    Parameters
+    ----------
+    path : path-like
+        The table file (UTF-8; a byte-order mark is accepted).
+    max_bytes : int or None
+        Refuse files larger than this (default :data:`MAX_TABLE_BYTES`; ``None``: no limit).
+
+    Raises
+    ------
+    InvalidFunctionError
+        One line naming the file (and line): missing, unreadable, too large, not UTF-8
+        text, or malformed.
+    """
     path = os.fspath(path)
-    with open(path, encoding="utf-8") as fh:
-        text = fh.read()
+    text = read_text(path, max_bytes=max_bytes, what="table file", override="read_table(..., max_bytes=N)")
     return parse_table(text, source=path)
 
 

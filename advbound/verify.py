@@ -14,14 +14,31 @@ whose ``lower`` and ``upper`` are the bounds advbound reports;
 >>> round(rep.lower, 12), rep.upper is None, rep.passed
 (1.414213562373, True, True)
 
+Acceptance
+----------
+Before anything is computed the certificate must satisfy the acceptance rule
+(:func:`advbound.certificate.check_acceptance`, stated in ``docs/evidence.md``):
+distinct inputs of one length over the alphabet, one output per input, finite
+positive costs, a finite Γ of the right shape, a well-formed dual witness and
+metadata.  Otherwise :class:`~advbound.errors.CertificateError` is raised, for a
+file (:func:`advbound.certificate.load_certificate`) and for an object built in
+memory alike.  A file must moreover hold Γ exactly symmetric and exactly zero on
+equal-output pairs; an in-memory Γ (solver output) is checked after
+:func:`advbound.certificate.cleaned`, and its residue is reported by the
+checks ``symmetric`` and ``equal_outputs`` below.
+
 Lower bound
 -----------
 Γ is symmetrised, its entries on equal-output pairs are set to zero (how much
-was zeroed is recorded, and a large amount fails the check ``equal_outputs``),
+was zeroed is recorded, and a large amount fails the check ``equal_outputs``;
+for a certificate read from a file there is nothing to zero),
 and for the positive bound its negative entries are clipped to zero.  Then
 ``lower = ||Γ|| / max_j ||Γ∘Δ_j|| / c_j`` (:func:`advbound.quantities.adversary_ratio`),
 a lower bound on ADV±_c (on ADV_c for entrywise non-negative Γ) whatever
-produced Γ.
+produced Γ.  A ``claimed_lower`` in the metadata fails the check of that name when
+it exceeds the recomputed bound by more than ``lower_rtol`` (relative); a claim
+below it is conservative and passes.  Likewise ``claimed_upper`` fails only when it
+is below the repaired upper bound.
 
 Upper bound and its repair
 --------------------------
@@ -57,8 +74,10 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import quantities as q
+from .certificate import BOUNDS, check_acceptance, cleaned
+from .errors import CertificateError
 
-__all__ = ["VerificationReport", "verify_certificate", "extract_gamma"]
+__all__ = ["VerificationReport", "verify_certificate", "extract_gamma", "function_difference"]
 
 _EPS = np.finfo(float).eps
 
@@ -192,20 +211,29 @@ def verify_certificate(cert, bound: str | None = None, tol: float = 1e-6, repair
     bound : {"general", "positive"}, optional
         Default: ``cert.metadata["bound"]``, else ``"general"``.
     tol : float
-        Relative tolerance for ``Γ`` on equal-output pairs (relative to ``max|Γ|``) and for
-        ``lower <= upper``.
+        Relative tolerance (relative to ``max|Γ|``) for the residue of an in-memory Γ on
+        equal-output pairs and its asymmetry, and for ``lower <= upper``.
     repair_tol : float
         Largest acceptable repair cost relative to the repaired ``t``.
     lower_rtol : float
-        Tolerance for agreement with claimed bounds recorded in ``cert.metadata``
-        (``claimed_lower`` / ``claimed_upper``), when present.
+        How far (relative) a ``claimed_lower`` in ``cert.metadata`` may exceed the recomputed
+        lower bound, and a ``claimed_upper`` fall below the repaired upper bound.
 
     Returns
     -------
     VerificationReport
+
+    Raises
+    ------
+    CertificateError
+        When ``cert`` (with Γ cleaned, see the module docstring) breaks the acceptance rule,
+        or ``bound`` is neither ``"general"`` nor ``"positive"``.
     """
-    meta = dict(cert.metadata or {})
+    check_acceptance(cleaned(cert), "certificate")
+    meta = dict(cert.metadata)
     bound = bound or meta.get("bound", "general")
+    if bound not in BOUNDS:
+        raise CertificateError(f"bound must be 'general' or 'positive', got {bound!r}")
     sym = cert.symbols
     out = cert.output_index
     costs = np.asarray(cert.costs, dtype=float)
@@ -215,12 +243,11 @@ def verify_certificate(cert, bound: str | None = None, tol: float = 1e-6, repair
 
     # ---- lower bound ------------------------------------------------------------------
     g = cert.gamma.toarray() if sp.issparse(cert.gamma) else np.array(cert.gamma, dtype=float)
-    finite = bool(np.isfinite(g).all())
-    checks.append(("gamma_finite", finite, "Γ has only finite entries" if finite else "Γ has NaN or inf entries"))
-    if not finite:
-        g = np.nan_to_num(g, nan=0.0, posinf=0.0, neginf=0.0)
+    checks.append(("gamma_finite", True, "Γ has only finite entries"))   # the acceptance rule refuses others
     asym = float(np.max(np.abs(g - g.T), initial=0.0))
     scale = float(np.max(np.abs(g), initial=0.0))
+    ok = asym <= tol * max(scale, 1e-300)
+    checks.append(("symmetric", ok, f"max |Γ - Γᵀ| = {asym:.3g} (symmetrised; max |Γ| {scale:.3g})"))
     eq_mass = q.equal_output_mass(g, out)
     zeroed = int(np.count_nonzero(np.where(out[:, None] == out[None, :], g, 0.0)))
     ok = eq_mass <= tol * max(scale, 1e-300)
@@ -243,8 +270,9 @@ def verify_certificate(cert, bound: str | None = None, tol: float = 1e-6, repair
                    f"max_j ||Γ∘Δ_j||/c_j = {worst:.6g}"))
     if "claimed_lower" in meta and meta["claimed_lower"] is not None:
         c = float(meta["claimed_lower"])
-        ok = abs(c - lower) <= lower_rtol * max(abs(c), abs(lower), 1e-300)
-        checks.append(("claimed_lower", ok, f"recomputed lower {lower:.10g} vs claimed {c:.10g}"))
+        ok = c <= lower + lower_rtol * max(abs(c), abs(lower), 1e-300)
+        checks.append(("claimed_lower", ok, f"recomputed lower {lower:.10g} vs claimed {c:.10g}"
+                       + ("" if ok else " (the claim exceeds what Γ proves)")))
 
     # ---- upper bound ------------------------------------------------------------------
     upper = t_raw = resid = resid_after = repair = None
@@ -260,8 +288,9 @@ def verify_certificate(cert, bound: str | None = None, tol: float = 1e-6, repair
                 upper = None
         if "claimed_upper" in meta and meta["claimed_upper"] is not None and upper is not None:
             c = float(meta["claimed_upper"])
-            ok = abs(c - upper) <= lower_rtol * max(abs(c), abs(upper), 1e-300)
-            checks.append(("claimed_upper", ok, f"repaired upper {upper:.10g} vs claimed {c:.10g}"))
+            ok = c >= upper - lower_rtol * max(abs(c), abs(upper), 1e-300)
+            checks.append(("claimed_upper", ok, f"repaired upper {upper:.10g} vs claimed {c:.10g}"
+                           + ("" if ok else " (the claim is below what the witness proves)")))
 
     passed = all(ok for _, ok, _ in checks)
     if passed:
@@ -335,3 +364,43 @@ def _check_dual(cert, bound, sym, out, costs, n, repair_tol, checks):
                    f"{min(mins) if mins else 0.0:.3g}"))
     upper = t_rep if ok_cost else None
     return upper, float(t_raw), resid, after, float(cost), mins
+
+
+def function_difference(cert, f) -> str | None:
+    """The first difference between the function of ``cert`` and the function ``f``, or None.
+
+    Both are compared as maps from inputs to outputs with per-position costs: the same
+    number of positions and the same cost at each (exactly, as floats), the same set of
+    inputs, the same output label for each input and the same set of alphabet symbols.  The
+    order of inputs and of the alphabet does not matter.  ``f`` is anything with
+    ``alphabet``, ``inputs``, ``outputs`` and ``costs`` (a :class:`~advbound.function.PartialFunction`
+    or a :class:`~advbound.certificate.Certificate`).
+
+    >>> from advbound.certificate import Certificate
+    >>> c = Certificate(("0", "1"), ("0", "1"), ("0", "1"), np.ones(1), np.zeros((2, 2)))
+    >>> function_difference(c, Certificate(("1", "0"), ("1", "0"), ("1", "0"), [1.0], None)) is None
+    True
+    >>> function_difference(c, Certificate(("0", "1"), ("0", "1"), ("1", "0"), [1.0], None))
+    "input '0' has output '0' in the certificate but '1' in the instance"
+    """
+    cc = [float(v) for v in np.asarray(cert.costs, dtype=float)]
+    fc = [float(v) for v in np.asarray(f.costs, dtype=float)]
+    if len(cc) != len(fc):
+        return f"the certificate has {len(cc)} positions, the instance {len(fc)}"
+    for j, (a, b) in enumerate(zip(cc, fc)):
+        if a != b:
+            return f"cost of position {j + 1} is {a!r} in the certificate but {b!r} in the instance"
+    mine = dict(zip(cert.inputs, cert.outputs))
+    theirs = dict(zip(f.inputs, f.outputs))
+    for x, y in theirs.items():
+        if x not in mine:
+            return f"input {x!r} of the instance is missing from the certificate"
+        if mine[x] != y:
+            return f"input {x!r} has output {mine[x]!r} in the certificate but {y!r} in the instance"
+    for x in mine:
+        if x not in theirs:
+            return f"input {x!r} of the certificate is not in the instance's domain"
+    if set(cert.alphabet) != set(f.alphabet):
+        return (f"the certificate's alphabet {''.join(cert.alphabet)!r} has other symbols than the instance's "
+                f"{''.join(f.alphabet)!r}")
+    return None

@@ -10,6 +10,7 @@ from advbound.builders import (
     and_function, block_generators, compose, dead_positions, exact_function, from_predicate,
     is_automorphism, majority_function, named_function, or_function, parity_function,
     position_search_composition, position_search_row, threshold_function, time_profiles,
+    check_domain_size, usable_row_lengths,
 )
 from advbound.errors import InvalidFunctionError
 from advbound.function import PartialFunction
@@ -370,6 +371,75 @@ def test_large_build_is_fast():
     elapsed = time.perf_counter() - t0
     assert f.size == math.comb(39, 3) * 16
     assert elapsed < 15.0
+
+
+class TestSizeLimits:
+    """Tests for the up-front size checks and the usable row lengths."""
+
+    def test_count_is_exact(self):
+        """compose counts before building: max_inputs = |D| builds, |D| - 1 is refused (OR3, T = 7:
+        C(6,2) 2^3 = 120 inputs, compositions of 7 into 3 parts times a bit per row)."""
+        row = position_search_row(5)
+        f = compose(or_function(3), row, budget=Budget.sum_squares(7), max_inputs=120)
+        assert f.size == 120
+        with pytest.raises(InvalidFunctionError, match=r"the composition would have 120 inputs on 15 positions"):
+            compose(or_function(3), row, budget=Budget.sum_squares(7), max_inputs=119)
+        # at most one row of value 1: C(6,2) (1 + 3) = 60 inputs
+        assert compose(or_function(3), row, budget=Budget.sum_squares(7), max_ones=1, max_inputs=60).size == 60
+        with pytest.raises(InvalidFunctionError, match=r"would have 60 inputs"):
+            compose(or_function(3), row, budget=Budget.sum_squares(7), max_ones=1, max_inputs=59)
+
+    def test_count_with_partial_outer_and_max_ones(self):
+        """The count respects a partial outer function and max_ones (size compared with the built domain)."""
+        outer = PartialFunction.from_pairs("01", [("000", 0), ("011", 1), ("101", 1), ("110", 0)])
+        f = compose(outer, position_search_row(3), budget=Budget.at_most(6), max_ones=2)
+        compose(outer, position_search_row(3), budget=Budget.at_most(6), max_ones=2, max_inputs=f.size)
+        with pytest.raises(InvalidFunctionError, match=rf"would have {f.size} inputs"):
+            compose(outer, position_search_row(3), budget=Budget.at_most(6), max_ones=2, max_inputs=f.size - 1)
+
+    def test_row_refused_before_building(self):
+        """A row of length 10**9 is refused at once (2 * 10**9 inputs), naming max_inputs."""
+        with pytest.raises(InvalidFunctionError, match=r"length 1,000,000,000 would have 2,000,000,000 inputs.*"
+                                                       r"more than max_inputs = 5,000,000"):
+            position_search_row(10 ** 9)
+        assert position_search_row(3, max_inputs=6).size == 6
+
+    def test_check_domain_size_off(self):
+        """max_inputs=None disables both checks; a bad max_inputs is an error."""
+        check_domain_size(10 ** 12, 10 ** 6, max_inputs=None)
+        with pytest.raises(InvalidFunctionError, match="max_inputs must be >= 1"):
+            check_domain_size(1, 1, max_inputs=0)
+
+    @pytest.mark.parametrize("n, T, alpha, want", [
+        (3, 4, 0.5, 2), (3, 12, 0.5, 10), (2, 5, 0.5, 4),  # k <= T - (n - 1)
+        (3, 6, 1.0, 2), (2, 17, 1.0, 4),                    # k^2 <= T - (n - 1)
+    ])
+    def test_usable_lengths_power(self, n, T, alpha, want):
+        """t = k^alpha under sum t_i^2 = T: the last usable k solves k^(2 alpha) <= T - (n - 1) (derived)."""
+        assert usable_row_lengths([10 ** 6] * n, [TimeModel.power(alpha)] * n, Budget.sum_squares(T)) == [want] * n
+        assert usable_row_lengths([want] * n, [TimeModel.power(alpha)] * n, Budget.at_most(T)) == [want] * n
+
+    def test_usable_lengths_agree_with_dead_positions(self):
+        """Cutting to the usable length removes exactly the trailing dead positions of the long row."""
+        for T in range(3, 9):
+            full = compose(or_function(2), position_search_row(8), budget=Budget.sum_squares(T))
+            (m, _), dead = usable_row_lengths([8, 8], [TimeModel.sqrt()] * 2, Budget.sum_squares(T)), dead_positions(full)
+            assert len(dead) == 2 * (8 - m)
+            cut = compose(or_function(2), position_search_row(m), budget=Budget.sum_squares(T))
+            keep = [j for j in range(16) if j not in dead]
+            assert cut.inputs == tuple("".join(x[j] for j in keep) for x in full.inputs)
+
+    def test_usable_lengths_tables_and_profiles(self):
+        """Position time tables use the last fitting time; listed profiles the largest listed position."""
+        tm = TimeModel.positions([1, 2 ** 0.5, 2, 8 ** 0.5])  # t^2 = 1, 2, 4, 8
+        assert usable_row_lengths([4, 4, 2], [tm] * 3, Budget.at_most(4)) == [2, 2, 2]
+        assert usable_row_lengths([4, 4, 2], [tm] * 3, Budget.at_most(8)) == [3, 3, 2]
+        prof = Budget.from_profiles([(1, 2, 3)])
+        assert usable_row_lengths([9, 9, 9], [TimeModel.sqrt()] * 3, prof) == [1, 2, 3]
+        perm = Budget.from_profiles([(1, 2, 3)], permutations=True)
+        assert usable_row_lengths([9, 9, None], [TimeModel.sqrt()] * 3, perm) == [3, 3, None]
+        # nothing known: a decreasing time or an input table leaves the row as it is
+        assert usable_row_lengths([9], [TimeModel.power(-1.0)], Budget.at_most(1)) == [9]
 
 
 from hypothesis import given, settings, strategies as st  # noqa: E402

@@ -98,12 +98,79 @@ def test_missing_arrays(tmp_path):
 
 
 def test_gamma_shape_mismatch(tmp_path):
-    """A Γ whose shape disagrees with the number of inputs is rejected."""
+    """A Γ whose shape disagrees with the number of inputs is refused when written and when read.
+
+    save_certificate now applies the acceptance rule before writing, so the malformed file is
+    forged with numpy directly to test the reader.
+    """
     c = Certificate(("0", "1"), ("0", "1"), ("0", "1"), np.ones(1), np.zeros((3, 3)))
     p = tmp_path / "z.npz"
-    save_certificate(c, p)
+    with pytest.raises(CertificateError, match=r"gamma has shape \(3, 3\), expected \(2, 2\)"):
+        save_certificate(c, p)
+    assert not p.exists()
+    np.savez(p, format=np.array(FORMAT), alphabet=np.array(["0", "1"]), inputs=np.array(["0", "1"]),
+             outputs=np.array(["0", "1"]), costs=np.ones(1), metadata=np.array("{}"), gamma=np.zeros((3, 3)))
     with pytest.raises(CertificateError, match="shape"):
         load_certificate(p)
+
+
+def test_save_cleans_solver_residue(tmp_path):
+    """Tiny asymmetry and residue on equal-output pairs are cleaned on writing; the bound is unchanged.
+
+    The OR_2 textbook Γ (ratio √2, common knowledge) plus 1e-13 noise: the in-memory verifier computes
+    with the symmetrised, zeroed matrix, which is exactly what the file then holds.
+    """
+    f = boolean(2, any)
+    g = np.zeros((4, 4))
+    g[0, 1] = g[1, 0] = g[0, 2] = g[2, 0] = 1.0
+    g += 1e-13 * np.random.default_rng(0).standard_normal((4, 4))
+    c = Certificate(f.alphabet, f.inputs, f.outputs, np.ones(2), g, metadata={"bound": "general"})
+    p = tmp_path / "noisy.npz"
+    save_certificate(c, p)
+    d = load_certificate(p)
+    out = np.array(f.outputs)
+    assert np.array_equal(d.gamma, d.gamma.T) and not d.gamma[out[:, None] == out[None, :]].any()
+    assert verify_certificate(d).lower == verify_certificate(c).lower
+    assert verify_certificate(d).lower == pytest.approx(math.sqrt(2), rel=1e-9)
+
+
+def test_save_cleans_sparse_and_positive(tmp_path):
+    """A sparse Γ with an equal-output entry and, for a positive certificate, a negative entry is written
+    clean (both dropped), symmetric as a COO set, and re-loads to the star value √2 (common knowledge)."""
+    f = boolean(2, any)
+    g = np.zeros((4, 4))
+    g[0, 1] = g[1, 0] = g[0, 2] = g[2, 0] = 1.0
+    g[1, 2] = 0.25          # 01 and 10 both have output 1
+    g[0, 3] = g[3, 0] = -1e-9
+    c = Certificate(f.alphabet, f.inputs, f.outputs, np.ones(2), sp.csr_matrix(g), metadata={"bound": "positive"})
+    p = tmp_path / "pos.npz"
+    save_certificate(c, p)
+    with np.load(p, allow_pickle=False) as z:
+        pairs = set(zip(z["gamma_row"].tolist(), z["gamma_col"].tolist()))
+    assert pairs == {(0, 1), (1, 0), (0, 2), (2, 0)}
+    assert verify_certificate(load_certificate(p)).lower == pytest.approx(math.sqrt(2))
+
+
+def test_wide_alphabet(tmp_path):
+    """300 symbols (more than int8 holds): symbols stay distinct and the one-position bound is exactly 1.
+
+    For N = 1 every pair of distinct inputs differs at the only position, so Γ∘Δ_1 = Γ and the ratio is 1
+    for any Γ (common knowledge: one query computes any function of one symbol).  With int8 symbol codes,
+    symbol 256 would alias symbol 0, drop a pair from Δ_1 and give a ratio above 1.
+    """
+    alphabet = tuple(chr(0x100 + i) for i in range(300))
+    outputs = tuple("0" if i == 0 else "1" for i in range(300))
+    g = np.zeros((300, 300))
+    g[0, 1:] = g[1:, 0] = 1.0
+    c = Certificate(alphabet, alphabet, outputs, np.ones(1), g)
+    assert c.symbols.max() == 299 and len(set(c.symbols[:, 0].tolist())) == 300
+    p = tmp_path / "wide.npz"
+    save_certificate(c, p)
+    d = load_certificate(p)
+    assert verify_certificate(d).lower == pytest.approx(1.0, rel=1e-12)
+    from advbound.rigorous import verify_rigorous
+    rig = verify_rigorous(d)
+    assert rig.verified and rig.lower_exact <= 1
 
 
 def test_or2_textbook(tmp_path):

@@ -76,9 +76,9 @@ def test_instance_file_with_set(capsys):
 
 def test_needs_a_mode(or2, capsys):
     """Without --queries or --error the command is bad input (exit 2)."""
-    with pytest.raises(SystemExit) as err:
-        main(["exact", str(or2)])
-    assert err.value.code == 2
+    assert main(["exact", str(or2)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "--queries" in err
 
 
 def test_bad_error_value(or2, capsys):

@@ -48,14 +48,14 @@ def test_text_instance_default_point(capsys):
 
 
 def test_dead_positions_flagged(tmp_path, capsys):
-    """Positions never non-star under the budget are flagged dead and get no LMI."""
-    p = tmp_path / "dead.toml"
-    p.write_text('[instance]\nouter = "or"\nrows = 2\nrow_length = 4\nbudget = { sum_squares = 4 }\n')
+    """A position with the same symbol on every input is flagged dead and gets no LMI (one LMI is left)."""
+    p = tmp_path / "dead.tbl"
+    p.write_text("00 0\n01 1\n")
     code, out, err = run(capsys, str(p), "--json")
     d = json.loads(out)
-    assert d["dead_positions"] == ["r1p4", "r2p4"] and d["sdp"]["lmi_count"] == 6
+    assert code == 0 and d["dead_positions"] == ["x1"] and d["sdp"]["lmi_count"] == 1
     code, out, err = run(capsys, str(p))
-    assert "r1p4(dead)" in out and "positions: 8 (6 live, 2 dead)" in out
+    assert "x1(dead)" in out and "positions: 2 (1 live, 1 dead)" in out
 
 
 def test_table_file(capsys):

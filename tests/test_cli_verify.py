@@ -40,15 +40,43 @@ def test_text_output_lists_checks(tmp_path, capsys):
 
 
 def test_corrupted_exit_1(tmp_path, capsys):
-    """A large entry on an equal-output pair fails verification: exit code 1."""
+    """A claimed lower bound above what Γ proves fails verification: exit code 1, NOT VERIFIED.
+
+    (This test used to put mass on an equal-output pair; such a file now breaks the acceptance rule and
+    is refused with exit 2, see tests/test_certificate_forgery.py, and save_certificate cleans it.)
+    The star Γ of OR_3 proves √3; the file claims 2.
+    """
+    from dataclasses import replace
+    c = _star(3)
+    p = tmp_path / "bad.npz"
+    save_certificate(replace(c, metadata=dict(c.metadata, claimed_lower=2.0)), p)
+    assert main(["verify", str(p), "--rigorous"]) == 1
+    out = capsys.readouterr().out
+    assert "NOT VERIFIED" in out and "[FAIL] claimed_lower" in out
+
+
+def test_claim_below_bound_passes(tmp_path, capsys):
+    """A claimed lower bound below the recomputed one is conservative: still VERIFIED (√3 proved, 1.5 claimed)."""
+    from dataclasses import replace
+    c = _star(3)
+    p = tmp_path / "low.npz"
+    save_certificate(replace(c, metadata=dict(c.metadata, claimed_lower=1.5)), p)
+    assert main(["verify", str(p), "--rigorous"]) == 0
+    assert "verdict: VERIFIED" in capsys.readouterr().out
+
+
+def test_equal_output_mass_in_file_exit_2(tmp_path, capsys):
+    """A file with Γ non-zero on an equal-output pair is refused (exit 2), not silently zeroed."""
     c = _star(3)
     g = c.gamma.copy()
     g[1, 2] = g[2, 1] = 4.0
-    from dataclasses import replace
-    p = tmp_path / "bad.npz"
-    save_certificate(replace(c, gamma=g), p)
-    assert main(["verify", str(p), "--rigorous"]) == 1
-    assert "NOT VERIFIED" in capsys.readouterr().out
+    p = tmp_path / "eq.npz"
+    np.savez(p, format=np.array("advbound-certificate/1"), alphabet=np.array(c.alphabet),
+             inputs=np.array(c.inputs), outputs=np.array(c.outputs), costs=np.ones(3),
+             metadata=np.array("{}"), gamma=g)
+    assert main(["verify", str(p), "--rigorous"]) == 2
+    out, err = capsys.readouterr()
+    assert "VERIFIED" not in out and "zero on equal-output pairs" in err and err.count("\n") == 1
 
 
 def test_unreadable_exit_2(tmp_path, capsys):

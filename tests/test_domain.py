@@ -1,8 +1,9 @@
 """The domain arrays (advbound.domain), checked against per-character computations done in the test."""
 
 import numpy as np
+import pytest
 
-from advbound.domain import domain
+from advbound.domain import domain, symbol_dtype
 from advbound.function import PartialFunction
 
 
@@ -42,3 +43,16 @@ def test_live_positions_and_delta():
     assert d.live_positions().tolist() == [1]
     assert d.delta(1).tolist() == [[False, True], [True, False]]
     assert not d.delta(0).any()
+
+
+@pytest.mark.parametrize("n_symbols, dtype", [(200, np.int16), (40000, np.int32)])
+def test_wide_alphabets(n_symbols, dtype):
+    """Alphabets beyond 127 symbols get a wider dtype and the same indices as the per-character reference."""
+    alphabet = tuple(chr(0x4E00 + i) for i in range(n_symbols))
+    rng = np.random.default_rng(7)
+    rows = np.unique(rng.integers(0, n_symbols, size=(60, 3)), axis=0)  # sorted rows: canonical order
+    xs = tuple("".join(alphabet[i] for i in r) for r in rows)
+    f = PartialFunction(alphabet, xs, tuple(str(r[0] % 2) for r in rows), (1.0,) * 3)
+    sym = domain(f).symbols
+    assert symbol_dtype(n_symbols) == dtype and sym.dtype == dtype
+    assert np.array_equal(sym, rows) and np.array_equal(sym, _reference_symbols(f))

@@ -88,13 +88,15 @@ def test_no_check_says_so(certs, tmp_path, capsys):
 
 
 def test_failed_certificate_exit_1(tmp_path, capsys):
-    """A certificate that fails the rigorous check is marked failed and the command exits 1."""
+    """A certificate that fails the rigorous check is marked failed and the command exits 1.
+
+    (It used to fail through mass on an equal-output pair, which the acceptance rule now refuses
+    outright with exit 2; here it fails by claiming 2 where its Γ proves √3.)
+    """
     c = _star(3, "bad")
-    g = c.gamma.copy()
-    g[1, 2] = g[2, 1] = 5.0
     from dataclasses import replace
     p = tmp_path / "bad.npz"
-    save_certificate(replace(c, gamma=g), p)
+    save_certificate(replace(c, metadata=dict(c.metadata, claimed_lower=2.0)), p)
     assert main(["export", str(p)]) == 1
     assert "failed" in capsys.readouterr().out
 
@@ -103,3 +105,12 @@ def test_helpers():
     """Suffixes run A..Z, AA..; LaTeX specials are escaped."""
     assert [macro_suffix(i) for i in (0, 1, 25, 26, 701, 702)] == ["A", "B", "Z", "AA", "ZZ", "AAA"]
     assert latex_escape("a_b#c$") == "a\\_b\\#c\\$"
+
+
+def test_out_path_checked_first(certs, tmp_path, capsys):
+    """An --out that is a folder or lies in a missing folder is refused in one line (exit 2), nothing computed."""
+    assert main(["export", *map(str, certs), "--out", str(tmp_path)]) == 2
+    assert "is a folder" in capsys.readouterr().err
+    assert main(["export", *map(str, certs), "--out", str(tmp_path / "no" / "t.tex")]) == 2
+    err = capsys.readouterr().err
+    assert "does not exist" in err and err.count("\n") == 1

@@ -157,3 +157,16 @@ def test_to_dict_is_json():
     T = np.arange(4.0, 9.0)
     cmp = compare_models(T, 1.1 * np.sqrt(T) + 0.01 * np.sin(T), bootstrap=10)
     json.dumps(cmp.to_dict(), allow_nan=False)
+
+
+@pytest.mark.parametrize("T, y, where", [
+    ([4.0, 5.0, 6.0], [2.0, float("nan"), 2.4], r"y\[1\] = nan"),
+    ([4.0, float("inf"), 6.0], [2.0, 2.2, 2.4], r"T\[1\] = inf"),
+    ([4.0, 5.0, 6.0], [2.0, "abc", 2.4], "y holds a value that is not a number"),
+])
+def test_non_finite_values_refused(T, y, where):
+    """A NaN, an infinity or text among the points is one AdvboundError naming the entry, never a fit."""
+    with pytest.raises(AdvboundError, match=where):
+        compare_models(T, y, bootstrap=0)
+    with pytest.raises(AdvboundError, match=where):
+        fit_model(T, y, "sqrt", bootstrap=0)

@@ -60,6 +60,14 @@ class TestFromPairs:
         f = PartialFunction.from_pairs("*10", [("00", 0), ("*1", 1), ("10", 1), ("1*", 0)])
         assert f.inputs == ("*1", "1*", "10", "00")
 
+    def test_canonical_order_wide_alphabet(self):
+        """With 300 symbols listed in reverse code-point order, inputs sort by alphabet index."""
+        alphabet = tuple(chr(0x500 - i) for i in range(300))
+        pairs = [(alphabet[i] + alphabet[j], (i + j) % 2) for i, j in [(299, 0), (0, 299), (150, 7), (0, 1)]]
+        f = PartialFunction.from_pairs(alphabet, pairs)
+        idx = [[alphabet.index(c) for c in x] for x in f.inputs]
+        assert idx == [[0, 1], [0, 299], [150, 7], [299, 0]]
+
 
 class TestDirectConstruction:
     """Tests for the checks run on a directly constructed value."""

@@ -57,7 +57,7 @@ class TestEvaluate:
         ("'a'", r"'a' is not a number"),
         ("1 / 0", r"cannot evaluate '1 / 0'"),
         ("sqrt(-1)", r"cannot evaluate"),
-        ("2 ** 1000", r"too large"),
+        ("2 ** 2000", r"too large"),
         ("T +", r"cannot parse expression"),
         ("lambda: 1", r"is not allowed"),
         (True, r"expected a number or an expression"),
@@ -74,7 +74,8 @@ class TestSchema:
     def test_unknown_name_message(self, tmp_path):
         """The message names the file, table, key and the unknown name."""
         path = write(tmp_path, BASE.replace('"T - 2"', '"Tx - 2"'))
-        with pytest.raises(InvalidInstanceError, match=r"study\.toml: \[instance\] row_length: unknown name 'Tx'$"):
+        with pytest.raises(InvalidInstanceError,
+                           match=r"study\.toml \[grid point T=4\]: \[instance\] row_length: unknown name 'Tx'$"):
             load_instance(path)
 
     @pytest.mark.parametrize("change, msg", [
@@ -84,7 +85,7 @@ class TestSchema:
         (('outer = "or"', 'outer = { function = "threshold", k = 5 }'), r"k must be between 0 and 3"),
         (('outer = "or"', 'outer = { function = "or", n = 3 }'), r"unknown key 'n' \(the outer arity is rows\)"),
         (('rows = 3', 'rows = 0'), r"\[instance\] rows: must be >= 1, got 0"),
-        (('rows = 3', 'rows = "T / 3"'), r"\[instance\] rows: must be an integer, got 1\.3"),
+        (('rows = 3', 'rows = "T / 3"'), r"\[instance\] rows = \"T / 3\" evaluates to 1\.33+, must be an integer"),
         (('budget = { sum_squares = "T" }', 'budget = { sum = "T" }'), r"give exactly one of sum_squares, at_most, profiles"),
         (('budget = { sum_squares = "T" }', 'budget = { sum_squares = "T", rtol = 2 }'), r"rtol: must be in \[0, 1\)"),
         (('budget = { sum_squares = "T" }', 'budget = { profiles = [[1, 2]] }'), r"has 2 entries, expected 3"),
@@ -98,11 +99,11 @@ class TestSchema:
         (('row_length = "T - 2"', 'inner = "position_search"'), r"row_length: missing"),
     ])
     def test_schema_errors(self, tmp_path, change, msg):
-        """Unknown keys and bad values raise InvalidInstanceError naming the file and key."""
+        """Unknown keys and bad values raise InvalidInstanceError naming the file, grid point and key."""
         old, new = change
         assert old in BASE
         path = write(tmp_path, BASE.replace(old, new, 1))
-        with pytest.raises(InvalidInstanceError, match=r"study\.toml: .*" + msg):
+        with pytest.raises(InvalidInstanceError, match=r"study\.toml( \[grid point T=4\])?: .*" + msg):
             load_instance(path)
 
     def test_invalid_toml(self, tmp_path):
@@ -245,7 +246,8 @@ class TestBuild:
         """A restriction that leaves nothing is reported with the file name."""
         text = BASE.replace('row_length = "T - 2"', 'row_length = 1')
         spec = load_instance(write(tmp_path, text))
-        with pytest.raises(InvalidInstanceError, match=r"study\.toml: the budget .* allows no time profile"):
+        with pytest.raises(InvalidInstanceError,
+                           match=r"study\.toml \[grid point T=5\]: the budget .* allows no time profile"):
             build_instance(spec, {"T": 5})
 
     def test_load_function_dispatch(self, tmp_path):

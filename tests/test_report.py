@@ -260,3 +260,100 @@ def test_loose_points_left_out_of_fits():
     s = Series("general", None, T, lower, upper, (1, 2, 3, 4), ("a", "b", "c", "d"))
     kept = _fit_points(s, FIT_MAX_GAP)
     assert kept.T == (4.0, 8.0, 32.0) and kept.rows == ("a", "b", "d")
+
+
+# -- read-only stores, hand-edited rows, invalid points -----------------------------------------------
+SHIPPED = os.path.join(os.path.dirname(__file__), "..", "reports", "scaling_rows2", "results.sqlite")
+
+
+def test_shipped_store_fit_and_report_read_only(tmp_path, monkeypatch, capsys):
+    """`advbound fit` and `advbound report` on a copy of a shipped store in a read-only folder open it only
+    with mode=ro and leave the folder byte-for-byte unchanged (no -wal/-shm/-journal, same mtime)."""
+    import stat
+
+    import advbound.store as store_mod
+    from advbound.cli import main
+    if not os.path.exists(SHIPPED):
+        pytest.skip("reports/scaling_rows2/results.sqlite is not in this checkout")
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    shutil.copy2(SHIPPED, ro / "results.sqlite")
+    os.chmod(ro / "results.sqlite", stat.S_IRUSR | stat.S_IRGRP | stat.S_IROTH)
+    os.chmod(ro, stat.S_IRUSR | stat.S_IXUSR | stat.S_IRGRP | stat.S_IXGRP)
+    before = {n: ((ro / n).read_bytes(), os.stat(ro / n).st_mtime_ns) for n in os.listdir(ro)}
+    opened = []
+    real = store_mod._connect
+    monkeypatch.setattr(store_mod, "_connect", lambda target, uri=False: opened.append(target) or real(target, uri))
+    try:
+        assert main(["fit", str(ro / "results.sqlite"), "--json", "--bootstrap", "0"]) == 0
+        fits = json.loads(capsys.readouterr().out)
+        assert main(["report", str(ro / "results.sqlite"), "--out", str(tmp_path / "rep"), "--bootstrap", "0"]) == 0
+        after = {n: ((ro / n).read_bytes(), os.stat(ro / n).st_mtime_ns) for n in os.listdir(ro)}
+    finally:
+        os.chmod(ro, stat.S_IRWXU)
+    assert opened and all(t.startswith("file:") and "mode=ro" in t for t in opened)
+    assert after == before and sorted(after) == ["results.sqlite"]
+    assert "general" in fits
+    assert (tmp_path / "rep" / "summary.md").exists()
+    prov = json.loads((tmp_path / "rep" / "provenance.json").read_text())
+    assert not os.path.isabs(prov["store"])
+
+
+def _hand_edit(path, sql):
+    import sqlite3
+    con = sqlite3.connect(path)
+    con.execute(sql)
+    con.commit()
+    con.close()
+
+
+def test_report_lists_invalid_defective_and_certificate_rows(tmp_path, caplog):
+    """An invalid point appears in its own short list with its message; a hand-edited row is listed as left
+    out and is not fitted (5 points remain in its series); missing certificates are listed, numbers kept."""
+    p = tmp_path / "s.sqlite"
+    _fill(p)
+    with Store(p) as st:
+        st.put(make_row("inv", kind="adversary", spec_key="z", spec={}, params={"rows": 2, "T": 3},
+                        bound="general", status="invalid", study="syn", solver=META["settings"],
+                        message='s.toml [grid point rows=2, T=3]: the budget allows no time profile'))
+    key = run_key("adversary", "3-5", "general", META["settings"], "0")
+    _hand_edit(p, f"UPDATE results SET upper='1e-3 or so' WHERE run_key='{key}'")
+    with caplog.at_level("WARNING", logger="advbound"):
+        files = write_report(p, out=tmp_path / "rep", bootstrap=0)
+    summary = open(files.summary).read()
+    inv = summary.split("Invalid points")[1].split("\n\n")[1]
+    assert inv == ('* `{"T": 3, "rows": 2}` (general): '
+                   's.toml [grid point rows=2, T=3]: the budget allows no time profile')
+    left = summary.split("Stored rows left out")[1].split("\n\n")[1]
+    assert f"(run_key {key[:12]}): column upper: '1e-3 or so' is not a number" in left
+    assert "Rows whose certificate cannot be found" in summary and "'c/2-4.npz' is missing" in summary
+    assert "13 stored points: 11 with verified bounds, 1 failed or unverified, 1 with invalid input" in summary
+    fits = json.loads(open(tmp_path / "rep" / "fits.json").read())
+    sq = next(f for f in fits["general, rows=3"]["fits"] if f["model"] == "sqrt")
+    assert sq["T"] == [4.0, 6.0, 7.0, 8.0, 9.0]
+    assert any("column upper" in r.getMessage() for r in caplog.records)
+
+
+@pytest.mark.parametrize("key, value, words", [
+    ("bootstrap", "many", "bootstrap = 'many' must be an integer >= 0"),
+    ("laws", "sqrt", "laws = 'sqrt' must be a list of law names"),
+    ("grid", [1, 2], "grid = [1, 2] must be a table"),
+])
+def test_bad_study_settings_are_one_line(tmp_path, key, value, words):
+    """A hand-edited study setting of the wrong type is a one-line StoreError naming the store and key."""
+    from advbound.store import StoreError
+    p = tmp_path / "s.sqlite"
+    _fill(p)
+    with Store(p) as st:
+        st.set_meta("study", dict(META, **{key: value}))
+    with pytest.raises(StoreError, match=re.escape(f"{p}: meta key 'study': {words}")):
+        write_report(p, out=tmp_path / "rep")
+
+
+def test_report_out_that_is_a_file(tmp_path):
+    """An output path that is an existing file is one AdvboundError naming it, before anything is drawn."""
+    p = tmp_path / "s.sqlite"
+    _fill(p)
+    (tmp_path / "taken").write_text("x")
+    with pytest.raises(AdvboundError, match="taken: cannot create the report folder"):
+        write_report(p, out=tmp_path / "taken")

@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 
 from advbound.certificate import Certificate, load_certificate
-from advbound.errors import InvalidInstanceError
+from advbound.errors import AdvboundError, InvalidInstanceError
 from advbound.store import Store
-from advbound.study import Progress, StudySpec, load_study, plan, run_study, solver_settings
+from advbound.study import Progress, StudySpec, load_study, plan, run_study, solve_point, solver_settings
 
 
 def fake_api(grid):
@@ -83,7 +83,8 @@ def test_run_then_rerun_skips(tmp_path):
         assert len(rows) == 3
         assert sorted(r.lower for r in rows) == pytest.approx([2.0, math.sqrt(5), math.sqrt(6)])
         for r in rows:
-            assert load_certificate(r.certificate).gamma.shape == (2, 2)
+            assert not os.path.isabs(r.certificate)  # recorded relative to the store's folder
+            assert load_certificate(s.certificate_path(r)).gamma.shape == (2, 2)
             assert r.solver == solver_settings(st)
         assert s.get_meta("study")["name"] == "syn"
     assert not [f for f in os.listdir(st.certificates) if f.endswith(".tmp")]
@@ -202,10 +203,11 @@ def test_sigkill_mid_run_then_resume(tmp_path):
             proc.kill()
     with Store(store) as s:
         killed = s.rows()
+        paths = [s.certificate_path(r) for r in killed]
     assert 5 <= len(killed) < 40
-    for r in killed:  # every stored row is complete
+    for r, path in zip(killed, paths):  # every stored row is complete
         assert r.status == "optimal" and r.lower == pytest.approx(math.sqrt(r.params["T"]))
-        assert load_certificate(r.certificate).gamma.shape == (2, 2)
+        assert load_certificate(path).gamma.shape == (2, 2)
     st = StudySpec(name="syn", instance=None, store=store)
     rerun = run_study(st, runner=fake_runner, api=fake_api({"T": list(range(2, 42))}))
     assert rerun.skipped == len(killed) and rerun.solved == 40 - len(killed)
@@ -349,3 +351,169 @@ def test_load_study_rejects_exact(tmp_path, table, where):
     p = _write(tmp_path, table)
     with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\] exact.*{where}"):
         load_study(p)
+
+
+# -- invalid points, defective rows, certificate paths ----------------------------------------------
+def invalid_api(grid, bad):
+    """fake_api whose instance cannot be resolved at T in ``bad``, as advbound.instance refuses a row
+    length below 1 (the message names the grid point)."""
+    api = fake_api(grid)
+    base_key, base_resolved = api.spec_key, api.resolved
+
+    def check(params):
+        if params["T"] in bad:
+            raise InvalidInstanceError(f"s.toml [grid point T={params['T']}]: [instance] row_length = \"T - 3\" "
+                                       f"evaluates to {params['T'] - 3}, must be >= 1")
+
+    def spec_key(spec, params):
+        check(params)
+        return base_key(spec, params)
+
+    def resolved(spec, params):
+        check(params)
+        return base_resolved(spec, params)
+
+    return SimpleNamespace(grid_points=api.grid_points, resolved=resolved, spec_key=spec_key)
+
+
+class _Counting:
+    """A runner that records the T of every point it is asked to compute (in this process)."""
+
+    def __init__(self, inner=None):
+        self.calls = []
+        self.inner = inner or fake_runner
+
+    def __call__(self, task):
+        self.calls.append(task["params"]["T"])
+        return self.inner(task)
+
+
+def test_unresolvable_grid_point_stored_invalid_never_computed(tmp_path):
+    """A grid point whose instance cannot be resolved is stored with status "invalid" and its one-line
+    message, never handed to the solver, not retried by retry_failed; once the instance is fixed the
+    point gets a new key and is computed, and the old invalid row is removed (and would count as
+    replaced in a report)."""
+    from advbound.report import invalid_points
+    st = _study(tmp_path)
+    runner = _Counting()
+    pts = plan(st, invalid_api({"T": [3, 4, 5]}, {3}))
+    assert [p.invalid is not None for p in pts] == [True, False, False]
+    r1 = run_study(st, runner=runner, api=invalid_api({"T": [3, 4, 5]}, {3}))
+    assert runner.calls == [4, 5] and (r1.solved, r1.failed, r1.invalid) == (2, 0, 1) and not r1.ok
+    with Store(st.store) as s:
+        (bad,) = [r for r in s.rows() if r.invalid]
+        assert s.invalid_keys() == {bad.run_key} and not s.failed_keys()
+    assert bad.status == "invalid" and bad.error is None and bad.params == {"T": 3}
+    assert bad.message == 's.toml [grid point T=3]: [instance] row_length = "T - 3" evaluates to 0, must be >= 1'
+    r2 = run_study(st, runner=runner, api=invalid_api({"T": [3, 4, 5]}, {3}), retry_failed=True)
+    assert runner.calls == [4, 5] and (r2.solved, r2.invalid, r2.skipped) == (0, 1, 2)
+    r3 = run_study(st, runner=runner, api=invalid_api({"T": [3, 4, 5]}, set()))   # the instance was fixed
+    assert runner.calls == [4, 5, 3] and (r3.solved, r3.invalid) == (1, 0)
+    with Store(st.store) as s:
+        rows = s.rows()
+    assert sorted(r.params["T"] for r in rows) == [3, 4, 5] and all(r.success for r in rows)
+    assert bad.run_key not in {r.run_key for r in rows}  # the input it described no longer exists
+    assert invalid_points([bad, *rows]) == []                      # a later row replaces it
+    assert invalid_points([*rows, bad]) == [({"T": 3}, bad.message, ["general"])]
+
+
+def invalid_runner(task):
+    """At T = 5 the instance cannot be built (as solve_point reports an AdvboundError of build_instance)."""
+    if task["params"]["T"] == 5:
+        return {"ok": False, "invalid": True, "error": "s.toml [grid point T=5]: the budget (sum t_i^2 = 1.5) "
+                "allows no time profile", "time_total": 0.0, "versions": {}}
+    return fake_runner(task)
+
+
+def test_build_failure_stored_invalid_and_not_retried(tmp_path):
+    """A point whose instance cannot be built is stored as invalid with the message (not as a solver
+    failure), and retry_failed does not recompute it: only a changed instance does."""
+    st = _study(tmp_path)
+    runner = _Counting(invalid_runner)
+    r1 = run_study(st, runner=runner, api=fake_api({"T": [4, 5]}))
+    assert (r1.solved, r1.failed, r1.invalid) == (1, 0, 1)
+    r2 = run_study(st, runner=runner, api=fake_api({"T": [4, 5]}), retry_failed=True)
+    assert runner.calls == [4, 5] and (r2.skipped, r2.invalid) == (2, 0)
+    with Store(st.store) as s:
+        bad = [r for r in s.rows() if r.params["T"] == 5][0]
+    assert bad.status == "invalid" and "allows no time profile" in bad.message and bad.failed
+
+
+def test_solve_point_reports_build_errors_as_invalid(tmp_path):
+    """solve_point turns an AdvboundError of build_instance into invalid = True with the one-line message:
+    two position-search rows need sum t_i^2 >= 2 with t_k = sqrt(k) (derived), so a budget of 1.5 is empty."""
+    inst = pytest.importorskip("advbound.instance")
+    p = tmp_path / "b.toml"
+    p.write_text(textwrap.dedent("""
+        [instance]
+        outer = "or"
+        rows = 2
+        inner = "position_search"
+        row_length = "T - 1"
+        time = "sqrt"
+        budget = { sum_squares = "T - 3.5" }
+
+        [grid]
+        T = [5]
+        """))
+    spec = inst.load_instance(p)
+    out = solve_point({"instance": spec, "params": {"T": 5}, "bound": "general", "kind": "adversary",
+                       "settings": solver_settings(StudySpec(name="x", instance=None))})
+    assert out["ok"] is False and out["invalid"] is True
+    assert "b.toml" in out["error"] and "T=5" in out["error"] and "\n" not in out["error"]
+
+
+def test_defective_row_is_recomputed(tmp_path):
+    """A row edited by hand into an unreadable state (lower = 'abc') is recomputed by the next run."""
+    import sqlite3
+    st = _study(tmp_path)
+    run_study(st, runner=fake_runner, api=fake_api({"T": [4, 5]}))
+    con = sqlite3.connect(st.store)
+    con.execute("UPDATE results SET lower='abc' WHERE params_json='{\"T\":4}'")
+    con.commit()
+    con.close()
+    runner = _Counting()
+    again = run_study(st, runner=runner, api=fake_api({"T": [4, 5]}))
+    assert runner.calls == [4] and (again.solved, again.skipped) == (1, 1)
+    with Store(st.store) as s:
+        assert sorted(r.lower for r in s.rows()) == pytest.approx([2.0, math.sqrt(5)]) and not s.check_rows()
+
+
+def test_contradictory_solver_numbers_stored_unverified(tmp_path):
+    """A success whose verified lower bound exceeds its verified upper bound is stored as unverified."""
+    def runner(task):
+        out = fake_runner(task)
+        out["result"] = dict(out["result"], lower=3.0, upper=2.0)
+        return out
+    st = _study(tmp_path)
+    run_study(st, runner=runner, api=fake_api({"T": [4]}))
+    with Store(st.store) as s:
+        (row,) = s.rows()
+    assert row.status == "unverified" and "exceeds verified upper" in row.message
+
+
+def test_certificate_paths_relative_and_folder_checked(tmp_path):
+    """Certificates are recorded relative to the store's folder, so moving the folder keeps them usable; a
+    certificate directory outside that folder is refused before anything is computed."""
+    import shutil
+    st = StudySpec(name="syn", instance=None, store=str(tmp_path / "a" / "syn.sqlite"))
+    run_study(st, runner=fake_runner, api=fake_api({"T": [4]}))
+    shutil.move(str(tmp_path / "a"), str(tmp_path / "moved"))
+    with Store(tmp_path / "moved" / "syn.sqlite", readonly=True) as s:
+        (row,) = s.rows()
+        assert row.certificate == "syn-certificates/T=4_general-" + row.run_key[:12] + ".npz"
+        assert s.certificate_problem(row) is None
+        assert load_certificate(s.certificate_path(row)).gamma.shape == (2, 2)
+    runner = _Counting()
+    outside = StudySpec(name="syn", instance=None, store=str(tmp_path / "b" / "syn.sqlite"),
+                        certificates=str(tmp_path / "elsewhere"))
+    with pytest.raises(AdvboundError, match="elsewhere is not inside the folder of the store"):
+        run_study(outside, runner=runner, api=fake_api({"T": [4]}))
+    assert runner.calls == []
+
+
+@pytest.mark.parametrize("lease", [0, -1, float("nan")])
+def test_lease_must_be_positive(tmp_path, lease):
+    """A lease that is not a positive number of seconds is refused with one line."""
+    with pytest.raises(AdvboundError, match="lease must be a positive number"):
+        run_study(_study(tmp_path), runner=fake_runner, api=fake_api({"T": [4]}), lease=lease)

@@ -98,9 +98,62 @@ class TestRoundTrip:
             write_text(f)
 
     def test_missing_file(self, tmp_path):
-        """Reading a missing file raises FileNotFoundError (the CLI turns it into exit code 2)."""
-        with pytest.raises(FileNotFoundError):
+        """Reading a missing file raises one line naming it (the CLI turns it into exit code 2)."""
+        with pytest.raises(InvalidFunctionError, match=r"nope\.tbl: no such file$"):
             read_table(tmp_path / "nope.tbl")
+
+
+class TestReadHostile:
+    """Tests for reading files that are not UTF-8 table text: one line naming file, line and offset."""
+
+    def test_byte_order_mark_accepted(self, tmp_path):
+        """A UTF-8 byte-order mark before the first line is ignored: same function as without it."""
+        plain, marked = tmp_path / "plain.tbl", tmp_path / "bom.tbl"
+        plain.write_bytes(b"#! alphabet 01\n00 0\n01 1\n")
+        marked.write_bytes(b"\xef\xbb\xbf" + plain.read_bytes())
+        assert same(read_table(marked), read_table(plain))
+
+    def test_latin1_names_line_and_offset(self, tmp_path):
+        """Latin-1 bytes (0xe9 for e-acute) are not UTF-8: the line (2) and byte offset (8) are named."""
+        p = tmp_path / "latin.tbl"
+        p.write_bytes("00 0\n01 \u00e9\n".encode("latin-1"))
+        with pytest.raises(InvalidFunctionError, match=r"latin\.tbl:2: not UTF-8 text \(byte 0xe9 at offset 8\); "
+                                                       r"save the file as UTF-8$"):
+            read_table(p)
+
+    def test_binary_nul_names_offset(self, tmp_path):
+        """A NUL byte marks binary data, with line and offset (valid UTF-8 is not enough)."""
+        p = tmp_path / "bin.tbl"
+        p.write_bytes(b"00 0\n\x00\x01\x02\x03 1\n")
+        with pytest.raises(InvalidFunctionError, match=r"bin\.tbl:2: binary data \(a NUL byte at offset 5\)"):
+            read_table(p)
+
+    def test_control_character_refused(self, tmp_path):
+        """A control character other than whitespace (U+0007) is refused as binary data."""
+        p = tmp_path / "ctl.tbl"
+        p.write_bytes(b"00 0\n0\x07 1\n")
+        with pytest.raises(InvalidFunctionError, match=r"ctl\.tbl:2: binary data \(control character U\+0007"):
+            read_table(p)
+
+    def test_size_limit_regular_file(self, tmp_path):
+        """A file larger than max_bytes is refused before reading, naming the limit."""
+        p = tmp_path / "big.tbl"
+        p.write_text("00 0\n01 1\n10 1\n11 0\n")
+        with pytest.raises(InvalidFunctionError, match=r"big\.tbl: the file has 20 bytes, more than the limit "
+                                                       r"of 10 bytes for table files \(raise it with"):
+            read_table(p, max_bytes=10)
+        assert read_table(p, max_bytes=None).size == 4
+
+    def test_folder_refused(self, tmp_path):
+        """A folder is not a table file."""
+        with pytest.raises(InvalidFunctionError, match=r"is a folder, not a table file$"):
+            read_table(tmp_path)
+
+    def test_long_input_message_is_short(self):
+        """An error about a 100,000-character input quotes it cut, so the message stays short."""
+        with pytest.raises(InvalidFunctionError, match=r"^f\.tbl:2: input '0000.*\(100000 characters\).* has length") as e:
+            parse_table("00 0\n" + "0" * 100000 + " 1\n", source="f.tbl")
+        assert len(str(e.value)) < 200
 
 
 from hypothesis import given, settings  # noqa: E402

@@ -1,6 +1,7 @@
 """Tests of advbound.usergamma and the ``advbound gamma`` command."""
 
 import math
+import os
 
 import numpy as np
 import pytest
@@ -168,3 +169,129 @@ def test_cli_save_certificate_then_rigorous(tmp_path, capsys):
     d = json.loads(capsys.readouterr().out)
     exact = Fraction(d["lower_exact"])
     assert d["verified"] and exact ** 2 <= 3 and 1 - float(exact) / math.sqrt(3) < 2e-6
+
+
+# ---------------------------------------------------------------------------------------------
+# Hostile callables, specs and entries files
+# ---------------------------------------------------------------------------------------------
+def _exit_at_01(x, y):
+    """Calls sys.exit on the pair ('00', '01')."""
+    import sys
+    if (x, y) == ("00", "01"):
+        sys.exit(7)
+    return 0.0
+
+
+def test_callable_sys_exit_named():
+    """A callable that calls sys.exit is an error naming the callable, the exit code and the pair."""
+    with pytest.raises(GammaError, match=r"^gamma callable mine called sys.exit\(7\) at pair \('00', '01'\)$"):
+        gamma_from_callable(or_weight1(2), _exit_at_01, name="mine")
+
+
+@pytest.mark.parametrize("value,match", [
+    (10 ** 400, r"returned 1000.*\.\.\., which is not representable as a float"),
+    (1j, r"returned 1j \(complex\), not a real number"),
+    (np.array([1.0]), r"\(ndarray\), not a real number"),
+    (True, r"\(bool\), not a real number"),
+])
+def test_callable_unrepresentable_values(value, match):
+    """Huge integers, complex numbers, arrays and booleans are refused with the pair named."""
+    with pytest.raises(GammaError, match=match):
+        gamma_from_callable(or_weight1(2), lambda x, y: value)
+
+
+def test_overflowing_entries_refused():
+    """An entry of 1e308 (finite, but its square overflows) is refused naming the pair and the remedy."""
+    f = or_weight1(2)
+    g = gamma_from_callable(f, lambda x, y: 1e308 if {x, y} == {"00", "01"} else 0.0)
+    with pytest.raises(GammaError, match=r"Γ\('00', '01'\) = 1e\+308: .* divide Γ by a constant"):
+        evaluate_gamma(f, g)
+    with pytest.raises(GammaError, match=r"divide Γ by a constant"):
+        evaluate_gamma(f, sp.csr_matrix(g))
+
+
+def test_large_but_safe_entries_scale_invariant():
+    """Entries of 1e100 are accepted and give the same ratio as the unscaled star Γ (the ratio is scale-invariant)."""
+    f = or_weight1(3)
+    g = gamma_from_callable(f, star)
+    assert abs(evaluate_gamma(f, 1e100 * g).ratio - evaluate_gamma(f, g).ratio) < 1e-12
+
+
+def test_load_callable_paths(tmp_path, monkeypatch):
+    """A folder, a non-.py file, a module that calls sys.exit on import and a relative name: one-line errors."""
+    (tmp_path / "pkgdir").mkdir()
+    (tmp_path / "data.txt").write_text("x = 1\n")
+    (tmp_path / "quits.py").write_text("import sys\nsys.exit('bye')\n")
+    monkeypatch.chdir(tmp_path)
+    for spec, match in [("pkgdir/:g", r"'pkgdir/' is a folder, not a \.py file"),
+                        ("pkgdir:g", r"'pkgdir' is a folder, not a module"),
+                        ("data.txt:g", r"'data.txt' is a file but not a Python source file"),
+                        (f"{tmp_path}/data.txt:g", r"is not a Python source file \(\.py\)"),
+                        ("quits.py:g", r"importing quits.py called sys.exit\('bye'\)"),
+                        (".rel:g", r"relative module names are not supported")]:
+        with pytest.raises(GammaError, match=match):
+            load_callable(spec)
+
+
+def test_entries_text_encodings(tmp_path):
+    """A byte-order mark is accepted; binary and Latin-1 bytes are refused naming file and line."""
+    f = or_weight1(3)
+    p = tmp_path / "bom.tsv"
+    p.write_bytes("\ufeff000 001 1\n000 010 1\n000 100 1\n".encode("utf-8"))
+    assert abs(evaluate_gamma(f, gamma_from_entries(f, p)).ratio - math.sqrt(3)) < 1e-12
+    p = tmp_path / "latin1.tsv"
+    p.write_bytes(b"000 001 1\n# caf\xe9\n")
+    with pytest.raises(GammaError, match=r"latin1.tsv:2: not UTF-8 text \(byte 0xe9 at column 6\)"):
+        gamma_from_entries(f, p)
+
+
+def test_entries_endless_line_refused(tmp_path):
+    """/dev/zero (or any line longer than 1 MiB) is refused instead of read forever."""
+    f = or_weight1(2)
+    src = "/dev/zero" if os.path.exists("/dev/zero") else None
+    if src is None:
+        src = tmp_path / "long.tsv"
+        src.write_text("0" * (2 << 20))
+    with pytest.raises(GammaError, match=r":1: line longer than"):
+        gamma_from_entries(f, src)
+
+
+def test_npz_entries_hostile(tmp_path):
+    """npz entries: wrong shape (checked from the header), object arrays, float indices, repeated inputs."""
+    f = or_weight1(2)
+    cases = [
+        ("shape.npz", dict(gamma=np.zeros((5, 5))), r"gamma has shape \(5, 5\), expected \(3, 3\)"),
+        ("floatidx.npz", dict(gamma_row=np.array([0.0]), gamma_col=np.array([1]), gamma_val=np.array([1.0])),
+         r"gamma_row has dtype float64, expected signed integers or unsigned integers"),
+        ("dup.npz", dict(inputs=np.array(["00", "00"]), gamma=np.zeros((2, 2))), r"inputs\[1\] = '00' repeats"),
+    ]
+    for name, arrays, match in cases:
+        np.savez(tmp_path / name, **arrays)
+        with pytest.raises(GammaError, match=match):
+            gamma_from_entries(f, tmp_path / name)
+    np.savez(tmp_path / "obj.npz", gamma=np.array([[None] * 3] * 3, dtype=object))
+    with pytest.raises(GammaError, match=r"gamma .*(dtype object|unreadable)"):
+        gamma_from_entries(f, tmp_path / "obj.npz")
+
+
+def test_npz_dense_shape_not_decompressed(tmp_path):
+    """A header promising a 10^6 x 10^6 gamma is refused from the header alone (the data is never read)."""
+    import io
+    import zipfile
+    buf = io.BytesIO()
+    np.lib.format.write_array_header_1_0(buf, {"descr": "<f8", "fortran_order": False, "shape": (10**6, 10**6)})
+    p = tmp_path / "bomb.npz"
+    with zipfile.ZipFile(p, "w") as z:
+        z.writestr("gamma.npy", buf.getvalue())  # the header (with its magic) and no data
+    with pytest.raises(GammaError, match=r"gamma has shape \(1000000, 1000000\), expected \(3, 3\)"):
+        gamma_from_entries(or_weight1(2), p)
+
+
+def test_cli_sys_exit_callable_exit_2(tmp_path, capsys):
+    """CLI: a callable calling sys.exit(3) exits 2 (not 3, not 0) with one line naming the spec and the pair."""
+    mod = tmp_path / "quit.py"
+    mod.write_text("import sys\ndef g(x, y):\n    sys.exit(3)\n")
+    spec = f"{mod}:g"
+    assert main(["gamma", str(_table(tmp_path)), "--callable", spec]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and f"gamma callable {spec} called sys.exit(3) at pair ('000', '000')" in err

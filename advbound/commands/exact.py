@@ -4,12 +4,18 @@ Typical use::
 
     advbound exact instances/or_search.toml --set T=4 --queries 2 --json
     advbound exact or3.tbl --error 0 --compare-adversary
+
+The memory of the program is estimated before it is built
+(:func:`advbound.sizing.exact_estimate`).  With ``--queries`` a program that needs more
+than this machine has available is refused; with ``--error`` the search stops at the
+largest ``t`` that fits and says so.  ``--allow-large`` lifts both limits.
 """
 
 from __future__ import annotations
 
 import json
 import math
+import sys
 
 __all__ = ["register", "run", "adversary_factor"]
 
@@ -46,6 +52,8 @@ def register(subparsers) -> None:
     p.add_argument("--no-symmetry", action="store_true", help="do not use automorphisms to shrink the program")
     p.add_argument("--compare-adversary", action="store_true",
                    help="also solve ADV± and check Q_ε >= (1 - 2 sqrt(ε(1-ε)))/2 · ADV±")
+    p.add_argument("--allow-large", action="store_true",
+                   help="build the program even when its memory estimate exceeds what this machine has available")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     p.set_defaults(run=run)
 
@@ -57,13 +65,17 @@ def _load(args):
     return load_function(args.file, params=params), (params or {})
 
 
-def _compare(f, res) -> dict:
+def _compare(f, res, allow_large: bool = False) -> dict:
     """ADV± of ``f`` and the check ``queries >= factor(ε) · ADV±`` with ε the verified achievable error."""
     try:
         from advbound.solve import solve
     except ImportError:
         return {"available": False, "note": "advbound.solve is not installed; adversary comparison skipped"}
-    adv = solve(f)
+    from advbound.sizing import TooLargeError
+    try:
+        adv = solve(f, allow_large=allow_large)
+    except TooLargeError as err:
+        return {"available": False, "note": f"ADV± solve skipped: {err}"}
     lower = adv.lower
     if lower is None or not adv.success:
         return {"available": False, "note": f"ADV± solve did not verify ({adv.status}); comparison skipped"}
@@ -75,10 +87,32 @@ def _compare(f, res) -> dict:
             "holds": bool(res.queries >= need - 1e-9)}
 
 
+def _query_cap(f, args):
+    """Largest ``t`` the ``--error`` search may try within the memory budget, and why it is lower, if it is.
+
+    Returns ``(max_queries, note)``; ``note`` is None when the budget does not cut the search.
+    """
+    from advbound.domain import domain
+    from advbound.sizing import TooLargeError, check_memory, exact_estimate
+
+    top = args.max_queries if args.max_queries is not None else int(len(domain(f).live_positions()))
+    if args.allow_large:
+        return top, None
+    sym = not args.no_symmetry
+    check_memory(exact_estimate(f, 0, use_symmetry=sym))  # even t = 0 does not fit: refuse outright
+    for t in range(1, top + 1):
+        try:
+            check_memory(exact_estimate(f, t, use_symmetry=sym))
+        except TooLargeError as err:
+            return t - 1, str(err)
+    return top, None
+
+
 def run(args) -> int:
     """Handler of ``advbound exact``; returns the exit code."""
     from advbound.errors import InvalidFunctionError
     from advbound.exact import exact_success, least_queries
+    from advbound.sizing import check_memory, exact_estimate
 
     if not (args.tol > 0):
         raise InvalidFunctionError(f"--tol must be positive, got {args.tol}")
@@ -90,17 +124,28 @@ def run(args) -> int:
         raise InvalidFunctionError(f"--max-queries must be non-negative, got {args.max_queries}")
     f, params = _load(args)
     kw = dict(solver=args.solver, tol=args.tol, use_symmetry=not args.no_symmetry)
+    capped = None
     if args.queries is not None:
+        check_memory(exact_estimate(f, args.queries, use_symmetry=not args.no_symmetry),
+                     allow_large=args.allow_large)
         res = exact_success(f, args.queries, **kw)
     else:
-        res = least_queries(f, args.error, max_queries=args.max_queries, decision_tol=args.decision_tol, **kw)
-    comparison = _compare(f, res) if args.compare_adversary and res.success_probability is not None else None
+        max_q, capped = _query_cap(f, args)
+        res = least_queries(f, args.error, max_queries=max_q, decision_tol=args.decision_tol, **kw)
+        if capped is not None and (res.reached or res.queries < max_q):
+            capped = None
+    comparison = (_compare(f, res, args.allow_large)
+                  if args.compare_adversary and res.success_probability is not None else None)
+    if capped is not None:
+        sys.stderr.write(f"advbound: search stopped at t = {max_q}, the most that fits in memory: {capped}\n")
 
     if args.json:
         d = res.to_dict()
         d.update(file=str(args.file), params=dict(params), function=f.description, positions=f.n)
         if comparison is not None:
             d["adversary"] = comparison
+        if capped is not None:
+            d["memory_cap"] = {"queries": max_q, "message": capped}
         print(json.dumps(d, indent=2, sort_keys=True))
     else:
         print(f"function     {f.description or args.file}  (|D| = {f.size}, N = {f.n}, "

@@ -4,6 +4,9 @@ Typical use::
 
     advbound fit studies/default.sqlite
     advbound fit instances/studies/default.toml --json
+
+The store is opened read-only.  Rows that are not as advbound writes them are left out of
+the fits, with one warning line each on stderr.
 """
 
 from __future__ import annotations
@@ -37,11 +40,13 @@ def run(args) -> int:
     from advbound.errors import AdvboundError
     from advbound.report import collect_series, fit_series, open_store
 
-    with open_store(args.study, args.store) as st:
-        meta = st.get_meta("study") or {}
+    with open_store(args.study, args.store) as st:  # read-only: works on read-only media
+        meta = st.study_meta()
         series = collect_series(st, meta)
+        left_out = len(st.defects)
     if not series:
-        raise AdvboundError(f"{args.study}: no verified adversary results to fit")
+        why = f" ({left_out} defective row(s) left out, see the warnings)" if left_out else ""
+        raise AdvboundError(f"{args.study}: no verified adversary results to fit{why}")
     fits = fit_series(series, meta, bootstrap=args.bootstrap, seed=args.seed)
     if args.json:
         print(json.dumps({k: (v if isinstance(v, str) else v.to_dict()) for k, v in fits.items()},

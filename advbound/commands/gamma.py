@@ -4,8 +4,11 @@ Typical use::
 
     advbound gamma instances/or_search.toml --set T=7 --callable mygamma.py:gamma --improve
 
-Exit codes: 0 ok, 2 bad input (unknown module or function, a callable that raises or
-returns a non-number, an entries file naming inputs outside the domain).
+Exit codes: 0 ok, 2 bad input (unknown module or function, a spec naming a folder or a file
+that is not ``.py``, a callable that raises, calls ``sys.exit``, returns a non-number or
+entries so large that the norms overflow, an entries file naming inputs outside the domain,
+a ``--save-certificate`` path that cannot be written or already exists without ``--force``,
+a callable Γ too large for this machine's memory without ``--allow-large``).
 """
 
 from __future__ import annotations
@@ -32,6 +35,9 @@ def register(subparsers) -> None:
     p.add_argument("--iterations", type=int, default=100, metavar="N", help="improvement iterations (default 100)")
     p.add_argument("--save-certificate", metavar="PATH", default=None,
                    help="write Γ (improved, with --improve) as a certificate for 'advbound verify --rigorous'")
+    p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
+    p.add_argument("--allow-large", action="store_true",
+                   help="evaluate a callable even when the dense Γ exceeds the memory this machine has available")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
 
@@ -44,12 +50,19 @@ def _load_function(args):
 
 def run(args) -> int:
     """Handler of ``advbound gamma``; returns the exit code."""
+    from advbound.commands import check_output_path
+    from advbound.errors import InvalidFunctionError
     from advbound.usergamma import evaluate_gamma, gamma_from_callable, gamma_from_entries, improve_gamma, \
         load_callable
 
+    if args.iterations < 0:
+        raise InvalidFunctionError(f"--iterations must be non-negative, got {args.iterations}")
+    if args.save_certificate:
+        check_output_path(args.save_certificate, force=args.force)
     f = _load_function(args)
     if args.callable:
-        gamma = gamma_from_callable(f, load_callable(args.callable))
+        func = load_callable(args.callable)
+        gamma = gamma_from_callable(f, func, name=args.callable, allow_large=args.allow_large)
         source = f"callable {args.callable}"
     else:
         gamma = gamma_from_entries(f, args.entries)

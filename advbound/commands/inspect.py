@@ -1,8 +1,10 @@
 """``advbound inspect FILE [--set NAME=VALUE] [--json]``: what an instance or table file defines.
 
 Shows the domain size, output counts, alphabet, positions (names, costs, dead ones
-flagged), the histogram of time profiles of a composed function, and the size of the
-dense SDP it implies (see :mod:`advbound.sizing`).  Calls
+flagged), the histogram of time profiles of a composed function, the size of the
+dense SDP it implies, and the memory and rough time a dense ``solve`` would take with
+each solver next to the memory this machine has available (``solve`` refuses above it
+without ``--allow-large``; see :mod:`advbound.sizing`).  Calls
 :func:`advbound.sizing.inspect_summary`.
 """
 
@@ -53,11 +55,23 @@ def _load(args):
     return read_table(args.file), None, {"instance": None, "params": {}, "params_note": ""}
 
 
+def _estimates(f, s: dict) -> dict:
+    from ..sizing import memory_budget, solve_estimate
+
+    out = {"memory_available": memory_budget()}
+    if s["sdp"]["form"] != "constant":
+        out["solve_estimates"] = {name: {k: v for k, v in solve_estimate(f, s["sdp"]["bound"], name, s["sdp"]).items()
+                                         if k in ("memory_bytes", "seconds", "memory_formula", "time_formula")}
+                                  for name in ("SCS", "CLARABEL")}
+    return out
+
+
 def run(args) -> int:
     from ..sizing import inspect_summary
 
     f, tm, meta = _load(args)
     s = inspect_summary(f, tm, bound=args.bound, max_profiles=None if args.json else _SHOW_PROFILES)
+    s.update(_estimates(f, s))
     if args.json:
         print(json.dumps({"file": args.file, **meta, **s}, sort_keys=False))
         return 0
@@ -121,4 +135,13 @@ def _text(path: str, meta: dict, s: dict, f) -> str:
         sizes = ", ".join(f"{c} of size {k}" for k, c in z["lmi_sizes"].items()) or "none"
         lines.append(f"SDP ({name}, {z['form']} form): {z['variables']} variables, {z['lmi_count']} LMIs ({sizes})")
         lines.append(f"  dense memory ~ {_fmt_bytes(z['memory_bytes'])}  [{z['memory_formula']}]")
+    from ..sizing import format_seconds
+    avail = s["memory_available"]["available"]
+    for name, e in s.get("solve_estimates", {}).items():
+        over = "  (more than available: solve needs --allow-large)" if avail is not None and \
+            e["memory_bytes"] > avail else ""
+        lines.append(f"  solve with {name}: ~ {_fmt_bytes(e['memory_bytes'])}, rough time "
+                     f"{format_seconds(e['seconds'])}{over}")
+    if avail is not None:
+        lines.append(f"  memory available: {_fmt_bytes(avail)} ({s['memory_available']['source']})")
     return "\n".join(lines)

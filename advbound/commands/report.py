@@ -4,6 +4,10 @@ Typical use::
 
     advbound report instances/studies/default.toml          # the store the study file names
     advbound report studies/default.sqlite --out /tmp/rep
+
+The store is opened read-only (nothing is created next to it), so stores on read-only media can
+be reported on.  Rows that are not as advbound writes them are left out with a warning and listed
+in ``summary.md``.
 """
 
 from __future__ import annotations

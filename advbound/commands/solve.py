@@ -3,6 +3,11 @@
 Typical use::
 
     advbound solve instances/or_search.toml --set T=7 --solver CLARABEL --json
+
+Before anything is built, the ``--save-certificate`` path is checked (an existing
+file needs ``--force``) and, for ``--method dense``, the memory of the solve is
+estimated (:func:`advbound.sizing.solve_estimate`); a program that needs more than
+this machine has available is refused with the estimate unless ``--allow-large``.
 """
 
 from __future__ import annotations
@@ -35,6 +40,9 @@ def register(subparsers) -> None:
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     p.add_argument("--save-certificate", metavar="PATH", default=None,
                    help="write the certificate (.npz) for later re-checking")
+    p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
+    p.add_argument("--allow-large", action="store_true",
+                   help="solve even when the memory estimate exceeds what this machine has available")
     p.set_defaults(run=run)
 
 
@@ -54,6 +62,7 @@ def _load(args):
 def run(args) -> int:
     """Handler of ``advbound solve``; returns the exit code."""
     from advbound.certificate import save_certificate
+    from advbound.commands import check_output_path
     from advbound.errors import InvalidFunctionError
     from advbound.solve import solve
 
@@ -61,9 +70,11 @@ def run(args) -> int:
         raise InvalidFunctionError(f"--tol must be positive, got {args.tol}")
     if args.max_iters is not None and args.max_iters <= 0:
         raise InvalidFunctionError(f"--max-iters must be positive, got {args.max_iters}")
+    if args.save_certificate:
+        check_output_path(args.save_certificate, force=args.force)
     f, params = _load(args)
     res = solve(f, bound=args.bound, solver=args.solver, tol=args.tol, max_iters=args.max_iters,
-                method=args.method)
+                method=args.method, allow_large=args.allow_large)
     saved = None
     if args.save_certificate and res.certificate is not None:
         save_certificate(res.certificate, args.save_certificate)

@@ -5,6 +5,12 @@ Typical use::
     advbound study                                   # instances/studies/default.toml of this checkout
     advbound study instances/studies/default.toml --jobs 2
     advbound study my.toml --scheduler tcp://127.0.0.1:8786 --retry-failed --quiet
+    advbound study my.toml --jobs 2 & advbound study my.toml --jobs 2    # two sweeps share one store
+
+Exit codes: 0 every point stored with a success status (or left to another live sweep);
+1 some point is stored as failed or unverified (``--retry-failed`` recomputes them);
+2 bad input: the study file, or a grid point whose instance is invalid (stored as
+``invalid``; fix the instance, the rest of the grid is computed).
 """
 
 from __future__ import annotations
@@ -30,7 +36,14 @@ def register(subparsers) -> None:
     p.add_argument("--jobs", type=int, default=1, metavar="N", help="local worker processes (default 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="submit the points to this dask.distributed scheduler instead")
-    p.add_argument("--retry-failed", action="store_true", help="also recompute points stored as failed")
+    p.add_argument("--retry-failed", action="store_true",
+                   help="also recompute points whose solve failed (not points with invalid input)")
+    p.add_argument("--lease", type=float, default=None, metavar="SECONDS",
+                   help="lease on a point being computed, renewed every third of it; another sweep on the "
+                        "same store takes the point over once it expires (default 60)")
+    p.add_argument("--wait", action="store_true",
+                   help="wait for points another live sweep is computing, and take over those whose lease "
+                        "expires (default: leave them to it)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-report", action="store_true", help="do not write the report afterwards")
     p.add_argument("--out", metavar="DIR", default=None,
@@ -78,6 +91,10 @@ class TqdmProgress:
             self.bar.update(1)
         self._show()
 
+    def skip(self, point, why):
+        if self.bar is not None:
+            self.bar.update(1)
+
     def close(self):
         if self.bar is not None:
             self.bar.close()
@@ -112,34 +129,67 @@ def _request(req: dict) -> str:
     return f"t={req['queries']}" if req.get("queries") is not None else f"eps={req.get('error')}"
 
 
+def _what(row_or_point) -> str:
+    if row_or_point.kind != "exact":
+        return str(row_or_point.bound)
+    req = getattr(row_or_point, "request", None) or getattr(row_or_point, "solver", None) or {}
+    return f"exact {_request(req)}"
+
+
+def _invalid_lines(rows) -> list[str]:
+    """One line per grid point and message: ``{params} (general, positive): message``."""
+    groups: dict = {}
+    for r in rows:
+        key = (str(r.params), r.message)
+        groups.setdefault(key, []).append(_what(r))
+    return [f"{params} ({', '.join(whats)}): {msg}" for (params, msg), whats in groups.items()]
+
+
 def run(args) -> int:
     """Handler of ``advbound study``; returns the exit code."""
+    import math
+
     from advbound.errors import AdvboundError
-    from advbound.store import Store
+    from advbound.store import DEFAULT_LEASE, Store
     from advbound.study import default_study_path, load_study, plan, run_study
 
     if args.jobs < 1:
         raise AdvboundError(f"--jobs must be at least 1, got {args.jobs}")
+    lease = DEFAULT_LEASE if args.lease is None else args.lease
+    if not (math.isfinite(lease) and lease > 0):
+        raise AdvboundError(f"--lease must be a positive number of seconds, got {args.lease}")
     path = args.file or default_study_path()
     study = load_study(path, store=args.store, certificates=args.certificates, report=args.out)
     progress = None if args.quiet else TqdmProgress(study.name)
     try:
         summary = run_study(study, jobs=args.jobs, scheduler=args.scheduler, retry_failed=args.retry_failed,
-                            progress=progress)
+                            progress=progress, lease=lease, wait=args.wait)
     finally:
         if progress is not None:
             progress.close()
+    points = plan(study)
     with Store(study.store, readonly=True) as st:
-        failed_keys = st.failed_keys()
-    kept = [p for p in plan(study) if p.run_key in failed_keys]
+        states = st.states()
+        invalid_rows = [r for r in (st.get(p.run_key) for p in points
+                                    if getattr(states.get(p.run_key), "state", None) == "invalid") if r]
+    kept = [p for p in points if getattr(states.get(p.run_key), "state", None) == "failed"]
     print(f"study {study.name}: {summary.planned} point(s); {summary.skipped} already stored, "
-          f"{summary.solved} solved now, {summary.failed} failed now; store {study.store}")
+          f"{summary.solved} solved now, {summary.failed} failed now"
+          + (f", {len(invalid_rows)} with invalid input" if invalid_rows else "") + f"; store {study.store}")
     for row in summary.rows:
-        if row.failed:
-            what = row.bound if row.kind != "exact" else f"exact {_request(row.solver)}"
-            print(f"  failed: {row.params} {what}: {row.status}: {row.error or row.message}")
+        if row.failed and not row.invalid:
+            print(f"  failed: {row.params} {_what(row)}: {row.status}: {row.error or row.message}")
+    if invalid_rows:
+        for line in _invalid_lines(invalid_rows):
+            print(f"  invalid: {line}")
+        print(f"  {len(invalid_rows)} point(s) have invalid input; fix the instance in {path} and rerun "
+              "(points whose instance changes are computed afresh)")
     if kept and not args.retry_failed:
         print(f"  {len(kept)} point(s) are stored as failed; rerun with --retry-failed to recompute them")
+    if summary.held:
+        holders = sorted({lease.describe() for _, lease in summary.held})
+        print(f"  {len(summary.held)} point(s) are being computed by another sweep ({'; '.join(holders)}); "
+              "left to it (rerun later, or use --wait)")
     if not args.no_report:
         from advbound.report import write_report
         try:
@@ -150,4 +200,6 @@ def run(args) -> int:
             print(f"report: {files.summary}")
             _print_preferences(files)
             _print_exact(files)
+    if invalid_rows:
+        return 2
     return 1 if kept else 0

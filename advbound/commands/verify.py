@@ -5,8 +5,14 @@ The float path (:func:`advbound.verify.verify_certificate`, built on
 check of :mod:`advbound.rigorous`.  Typical use::
 
     advbound verify or4.npz --rigorous --json
+    advbound verify or3-T6.npz --against instances/or3_sum_T.toml --set T=6
 
-Exit codes: 0 verified, 1 a check failed, 2 unreadable file or bad option.
+A file that breaks the acceptance rule (:func:`advbound.certificate.check_acceptance`)
+is refused with one line before anything is computed.  ``--against`` also checks that
+the certificate's function is exactly the instance's (:func:`advbound.export.match_instance`).
+
+Exit codes: 0 verified, 1 a check failed (including a function that is not the
+instance's), 2 unreadable or malformed file, bad instance or bad option.
 """
 
 from __future__ import annotations
@@ -30,6 +36,11 @@ def register(subparsers) -> None:
                    help="safety scaling of the proved constraint bounds (default 1e-6)")
     p.add_argument("--method", choices=("auto", "ldl", "cholesky", "residual"), default="auto",
                    help="positive-definiteness proofs: exact LDLᵀ, verified float Cholesky, exact residual of a float Cholesky, or auto (default)")
+    p.add_argument("--against", metavar="INSTANCE", default=None,
+                   help="also check that the certificate is for exactly this instance (.toml) or table file")
+    p.add_argument("--set", dest="params", action="append", default=[], metavar="NAME=VALUE",
+                   help="grid parameter of the --against instance (repeatable); without it every grid point "
+                        "is tried")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
 
@@ -46,7 +57,16 @@ def run(args) -> int:
     safety = DEFAULT_SAFETY if args.safety is None else args.safety
     if not safety > 0:
         raise AdvboundError(f"--safety must be positive, got {safety}")
+    if args.params and not args.against:
+        raise AdvboundError("--set is only used with --against INSTANCE")
     cert = load_certificate(args.certificate)
+    match = None
+    if args.against:
+        from advbound.export import match_instance
+        from advbound.instance import parse_params
+        match = match_instance(cert, args.against, parse_params(args.params))
+        if not match.matched:
+            return _mismatch(args, match)
     fl = verify_certificate(cert)
     rig = None
     if args.rigorous:
@@ -59,11 +79,16 @@ def run(args) -> int:
         if rig is not None:
             out["lower_exact"] = rig.to_dict()["lower_exact"]
             out["rigorous"] = rig.to_dict()
+        if match is not None:
+            out["against"] = match.to_dict()
         print(json.dumps(out, indent=1))
         return 0 if verified else 1
     desc = cert.metadata.get("description") or "(no description)"
     print(f"certificate {args.certificate}: {desc}; |D| = {len(cert.inputs)}, {len(cert.costs)} positions, "
           f"bound {fl.bound}")
+    if match is not None:
+        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
+        print(f"against {match.label()}: same function ({spec})")
     print("float check (advbound.quantities):")
     for name, ok, det in fl.checks:
         print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
@@ -92,3 +117,14 @@ def run(args) -> int:
         print(f"  time {rig.seconds:.2f} s ({rig.method}, backend {rig.backend})")
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
     return 0 if verified else 1
+
+
+def _mismatch(args, match) -> int:
+    """Report a certificate whose function is not the instance's: a failed check, exit 1."""
+    if args.json:
+        print(json.dumps({"certificate": str(args.certificate), "verified": False, "lower": None,
+                          "against": match.to_dict()}, indent=1))
+        return 1
+    print(f"against {match.label()}: not this instance's function: {match.message}")
+    print("verdict: NOT VERIFIED")
+    return 1

@@ -1,0 +1,151 @@
+"""The row-symmetric (S_n-reduced) program against counts, known values and the dense program."""
+import itertools
+import math
+
+import numpy as np
+import pytest
+
+from advbound.builders import position_search_composition
+from advbound.rowsym import (RowFamily, check_dimensions, expand_gamma, family_of, formulate_rows,
+                             gamma_on_orbits, partitions, position_search_family, reduced_lower_bound,
+                             semistandard_tableaux, solve_reduced, solve_rows, standard_tableaux_count)
+from advbound.solve import solve
+from advbound.verify import verify_certificate
+
+
+def _boolean_family(n, rule):
+    """The symmetric function rule(#ones) on n bits, as a family of n rows of one bit."""
+    contents = tuple(tuple(sorted(c)) for c in itertools.combinations_with_replacement((0, 1), n))
+    return RowFamily(("0", "1"), contents, tuple(str(rule(sum(c))) for c in contents), (1.0,))
+
+
+def _reduced_value(fam, bound="general"):
+    prog = formulate_rows(fam, bound)
+    x, word, *_ = solve_reduced(prog)
+    assert word in ("optimal", "optimal_inaccurate")
+    g, rho = gamma_on_orbits(prog, x)
+    return reduced_lower_bound(prog, g, rho)["lower"], prog, g
+
+
+@pytest.mark.parametrize("mu", [(1, 1, 1), (2, 1), (2, 2, 1), (3, 1, 1, 1), (2, 2, 2)])
+def test_young_rule_dimension_count(mu):
+    """Σ_λ f^λ K_{λμ} = n!/Π μ_i! (Young's rule: M^μ = ⊕ K_{λμ} S^λ; common knowledge)."""
+    n = sum(mu)
+    content = list(enumerate(mu))
+    total = sum(standard_tableaux_count(lam) * len(semistandard_tableaux(lam, content)) for lam in partitions(n))
+    assert total == math.factorial(n) // math.prod(math.factorial(k) for k in mu)
+
+
+def test_kostka_and_hook_values():
+    """K_{(2,1),(1,1,1)} = 2, K_{(3,2),(2,2,1)} = 2, f^{(3,2)} = 5, f^{(2,2)} = 2 (common knowledge tables)."""
+    assert len(semistandard_tableaux((2, 1), [(0, 1), (1, 1), (2, 1)])) == 2
+    assert len(semistandard_tableaux((3, 2), [(0, 2), (1, 2), (2, 1)])) == 2
+    assert standard_tableaux_count((3, 2)) == 5 and standard_tableaux_count((2, 2)) == 2
+
+
+@pytest.mark.parametrize("n,T,max_ones", [(3, 7, None), (4, 8, 1), (5, 8, 1), (4, 7, None)])
+def test_blocks_cover_the_domain(n, T, max_ones):
+    """Σ_λ f^λ · (block size) = |D|: the representative set spans every isotypic component."""
+    total, size = check_dimensions(formulate_rows(position_search_family("or", n, T, max_ones)))
+    assert total == size
+
+
+def test_family_of_composition_matches_direct_enumeration():
+    """family_of(f) of the built composition has the contents the direct enumerator lists."""
+    f = position_search_composition("or", 3, 4, 6)
+    fam = family_of(f)
+    direct = position_search_family("or", 3, 6)
+    assert fam.size == f.size == direct.size
+    as_strings = lambda fm: sorted(tuple(sorted(fm.letters[a] for a in c)) for c in fm.contents)  # noqa: E731
+    assert as_strings(fam) == as_strings(direct)
+
+
+def test_family_of_refuses_non_interchangeable_rows():
+    """A domain that is not closed under row swaps has no row family."""
+    f = position_search_composition("or", 2, 3, 4)
+    keep = [i for i, x in enumerate(f.inputs) if x != f.inputs[0]]
+    from advbound.function import PartialFunction
+    g = PartialFunction.from_pairs("".join(f.alphabet), [(f.inputs[i], f.outputs[i]) for i in keep])
+    g = type(g)(g.alphabet, g.inputs, g.outputs, g.costs, groups=f.groups)
+    assert family_of(g) is None
+
+
+@pytest.mark.parametrize("n", [2, 3, 4])
+def test_or_n_is_sqrt_n(n):
+    """ADV±(OR_n) = √n ("Quantum lower bounds by quantum arguments", 2000, arXiv:quant-ph/0002066)."""
+    low, _, _ = _reduced_value(_boolean_family(n, lambda k: int(k > 0)))
+    assert low == pytest.approx(math.sqrt(n), rel=1e-6)
+
+
+def test_parity_is_n():
+    """ADV±(PARITY_3) = 3 (common knowledge); three outputs sides are not needed, two outputs here."""
+    low, _, _ = _reduced_value(_boolean_family(3, lambda k: k % 2))
+    assert low == pytest.approx(3.0, rel=1e-6)
+
+
+@pytest.mark.parametrize("n,T,max_ones,outer", [
+    (2, 5, None, "or"), (3, 6, None, "or"), (3, 6, 1, "or"), (3, 6, None, "and"),
+    (3, 5, None, "threshold:2"), (4, 6, None, "or")])
+def test_reduced_equals_dense(n, T, max_ones, outer):
+    """The reduced optimum equals the dense program's verified value (dense CLARABEL, computed in the test)."""
+    fam = position_search_family(outer, n, T, max_ones)
+    low, prog, g = _reduced_value(fam)
+    f, G = expand_gamma(prog, g)
+    dense = solve(f, solver="CLARABEL")
+    assert dense.lower is not None and dense.upper is not None
+    assert dense.lower - 1e-6 <= low <= dense.upper + 1e-6
+    assert low == pytest.approx(dense.upper, rel=1e-5)
+
+
+def test_positive_bound_equals_dense():
+    """ADV (non-negative weights) of OR_3 of rows, T = 5: reduced = dense (dense computed in the test)."""
+    fam = position_search_family("or", 3, 5)
+    low, prog, g = _reduced_value(fam, "positive")
+    f, _ = expand_gamma(prog, g)
+    dense = solve(f, "positive", solver="CLARABEL")
+    assert low == pytest.approx(dense.upper, rel=1e-5)
+
+
+def test_three_outputs_need_both_sides():
+    """Counting the ones of 3 rows (4 outputs) reduced = dense, both LMI sides imposed."""
+    rows = position_search_family("or", 3, 5)
+    fam = RowFamily(rows.letters, rows.contents, tuple(str(sum(a % 2 for a in c)) for c in rows.contents),
+                    rows.costs)
+    low, prog, g = _reduced_value(fam)
+    assert prog.sides == (1, -1)
+    f, _ = expand_gamma(prog, g)
+    dense = solve(f, solver="CLARABEL")
+    assert low == pytest.approx(dense.upper, rel=1e-5)
+
+
+@pytest.mark.parametrize("n,expected", [(4, 3.31089), (5, 3.30030)])
+def test_reference_values_at_T8(n, expected):
+    """OR of n rows, Σk = 8, at most one row of value 1: the dense program's values 3.31089 and 3.30030
+    (computed with the dense and factored programs of this package, README table, rows_envelope study)."""
+    low, _, _ = _reduced_value(position_search_family("or", n, 8, max_ones=1))
+    assert low == pytest.approx(expected, abs=2e-5)
+
+
+def test_expanded_gamma_reproduces_reduced_norms():
+    """verify_certificate on the expanded Γ gives the reduced-basis ratio (independent dense check)."""
+    from advbound.certificate import Certificate
+    low, prog, g = _reduced_value(position_search_family("or", 3, 7))
+    f, G = expand_gamma(prog, g)
+    rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G))
+    assert rep.passed and rep.lower == pytest.approx(low, rel=1e-7)
+
+
+def test_solve_method_rows():
+    """solve(method="rows") on the built composition: lower verified on the full domain, equal to dense."""
+    f = position_search_composition("or", 3, 5, 7)
+    r = solve(f, method="rows")
+    assert r.lower == pytest.approx(2.858167, abs=2e-6)   # 3 rows, T = 7: README table / dense program
+    assert r.certificate is not None and r.verification.passed
+
+
+def test_solve_rows_refuses_non_row_function():
+    """A function without interchangeable rows gets a one-line refusal."""
+    from advbound.builders import majority_function
+    from advbound.errors import InvalidFunctionError
+    with pytest.raises(InvalidFunctionError, match="interchangeable rows"):
+        solve_rows(majority_function(3))

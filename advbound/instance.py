@@ -317,23 +317,25 @@ class InstanceSpec:
         return tuple(self.grid)
 
 
-def load_instance(path: str | os.PathLike, *, max_points: int = MAX_GRID_POINTS) -> InstanceSpec:
+def load_instance(path: str | os.PathLike, *, max_points: int = MAX_GRID_POINTS,
+                  check_points: bool = True) -> InstanceSpec:
     """Read and validate an instance file.
 
     The file must be UTF-8 text (a byte-order mark is accepted) of at most
     :data:`MAX_INSTANCE_BYTES`.  Every grid point is resolved once, so unknown names and bad
     values are reported here (``"f.toml: [instance] row_length: unknown name 'Tx'"``; with
     a grid, the point is named: ``"f.toml [grid point T=2]: [instance] row_length = ..."``).
+    ``check_points=False`` skips that (a study stores a bad point as invalid and goes on).
     """
     path = os.fspath(path)
     text = read_text(path, max_bytes=MAX_INSTANCE_BYTES, error=InvalidInstanceError, what="instance file",
                      override="advbound.instance.MAX_INSTANCE_BYTES", binary_ok=True)
     return parse_instance(text, source=path, base_dir=os.path.dirname(os.path.abspath(path)),
-                          max_points=max_points)
+                          max_points=max_points, check_points=check_points)
 
 
 def parse_instance(text: str, source: str = "<string>", base_dir: str = ".", *,
-                   max_points: int = MAX_GRID_POINTS) -> InstanceSpec:
+                   max_points: int = MAX_GRID_POINTS, check_points: bool = True) -> InstanceSpec:
     """Parse instance-file text; see :func:`load_instance`.
 
     A grid of more than ``max_points`` points (default :data:`MAX_GRID_POINTS`) is refused.
@@ -384,8 +386,9 @@ def parse_instance(text: str, source: str = "<string>", base_dir: str = ".", *,
         sizes = " x ".join(f"{k}: {len(v)}" for k, v in grid.items())
         raise InvalidInstanceError(f"{source}: [grid] has {count:,} points ({sizes} values), more than "
                                    f"{max_points:,}; split the grid or pass max_points")
-    for params in iter_grid_points(spec):
-        resolved(spec, params)
+    if check_points:
+        for params in iter_grid_points(spec):
+            resolved(spec, params)
     return spec
 
 

@@ -248,7 +248,7 @@ def load_study(path, *, store: str | None = None, certificates: str | None = Non
         Unknown ``[study]`` key or a value of the wrong type, naming file and key.
     """
     api = api or _instance_api()
-    spec = api.load_instance(path)
+    spec = api.load_instance(path, check_points=False)
     raw = dict(getattr(spec, "study", None) or {})
     unknown = sorted(set(raw) - set(STUDY_KEYS))
     if unknown:

@@ -149,6 +149,12 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
 
     meta = _metadata(f, bound, raw, tol, max_iters, method, dual_source)
     meta["verification"] = {"repair_tol": float(repair_tol), "support_thresholds": list(_SUPPORT_THRESHOLDS)}
+    if not (np.all(np.isfinite(raw.weights)) and np.all(np.isfinite(raw.rho))):
+        return SolveResult(message=f"solver returned {raw.status!r} with non-finite entries in its point; no bound",
+                           status=_status.FAILED, **base)
+    if raw.dual_plus is not None and not all(np.all(np.isfinite(a)) for a in (raw.dual_plus, raw.dual_minus, raw.dual_t)
+                                             if a is not None):
+        raw = dataclasses.replace(raw, dual_plus=None, dual_minus=None, dual_t=None)
     best = None
     for thr in _SUPPORT_THRESHOLDS:
         gamma = extract_gamma(raw.weights, raw.rho, threshold=thr)

@@ -261,3 +261,22 @@ class TestSolveBehaviour:
         assert r.status in (status.INACCURATE, status.FAILED, status.UNVERIFIED)
         if r.lower is not None:
             assert r.lower <= math.sqrt(7) * (1 + 1e-9)   # EXACT-2-of-3, arXiv:0904.2759 (from memory)
+
+
+def test_non_finite_solver_point_is_a_failed_status(monkeypatch):
+    """A solver point with NaN entries gives status 'failed' and no bound, never an exception."""
+    import dataclasses as dc
+
+    import numpy as np
+
+    from advbound import sdp
+    from advbound.builders import or_function
+    real = sdp.solve_formulation
+
+    def broken(*a, **k):
+        raw = real(*a, **k)
+        return dc.replace(raw, weights=np.full_like(raw.weights, np.nan))
+
+    monkeypatch.setattr(sdp, "solve_formulation", broken)
+    r = solve(or_function(2), solver="CLARABEL")
+    assert r.status == "failed" and r.lower is None and "non-finite" in r.message

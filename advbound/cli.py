@@ -138,14 +138,9 @@ def _first_missing(path: str) -> str | None:
 
 def _first_non_folder(path: str) -> str | None:
     """The nearest ancestor of ``path`` that exists but is not a folder, if any."""
-    parent = os.path.dirname(os.path.abspath(path))
-    while True:
-        if os.path.exists(parent):
-            return None if os.path.isdir(parent) else parent
-        up = os.path.dirname(parent)
-        if up == parent:
-            return None
-        parent = up
+    from .commands import _file_on_the_way
+
+    return _file_on_the_way(os.path.dirname(os.path.abspath(path)))
 
 
 def os_error_message(err: OSError) -> str:

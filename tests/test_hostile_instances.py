@@ -315,8 +315,6 @@ class TestLargeAlphabets:
         assert f.size == 200 and d.symbols[:, 0].tolist() == list(range(200))
         assert d.output_index.tolist() == [i % 2 for i in range(200)]
 
-    @pytest.mark.xfail(raises=OverflowError, strict=False,
-                       reason="Certificate.symbols (certificate.py) is still int8; remove once it is widened")
     def test_solve_wide_alphabet(self):
         """One position, symbols 140..159: ADV± = 1 (derivation: Delta_1 is every pair of distinct inputs,
         so ||Gamma o Delta_1|| = ||Gamma|| for every Gamma)."""

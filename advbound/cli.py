@@ -227,15 +227,19 @@ def _report(code: int, line: str, json_mode: bool, out) -> int:
     """Print ``line`` on stderr (with the ``advbound: `` prefix) and, in JSON mode, the error object."""
     _write_err(f"advbound: {line}\n")
     if json_mode and out is not None:
-        text = line[len("error: "):] if line.startswith("error: ") else line
-        try:
-            out.write(json.dumps({"error": text, "exit": code}) + "\n")
-            out.flush()
-        except BrokenPipeError:
-            _silence_stdout()
-        except (OSError, ValueError):
-            pass
+        _write_json_error(out, line[len("error: "):] if line.startswith("error: ") else line, code)
     return code
+
+
+def _write_json_error(out, text: str, code: int) -> None:
+    """Write the one error object ``{"error": text, "exit": code}`` to ``out`` (quietly if it is closed)."""
+    try:
+        out.write(json.dumps({"error": text, "exit": code}) + "\n")
+        out.flush()
+    except BrokenPipeError:
+        _silence_stdout()
+    except (OSError, ValueError):
+        pass
 
 
 def _internal(err: BaseException, verbose: bool, json_mode: bool, out) -> int:
@@ -325,16 +329,8 @@ def main(argv=None) -> int:
 
 def _report_json_only(message: str) -> None:
     """The error object of a rejected command line (its line is already on stderr)."""
-    out = sys.stdout
-    if out is None:
-        return
-    try:
-        out.write(json.dumps({"error": message, "exit": EXIT_USAGE}) + "\n")
-        out.flush()
-    except BrokenPipeError:
-        _silence_stdout()
-    except (OSError, ValueError):
-        pass
+    if sys.stdout is not None:
+        _write_json_error(sys.stdout, message, EXIT_USAGE)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -176,23 +176,58 @@ class _Shape:
         return tuple(w)
 
 
-def _row_symmetrise(vec: dict, sh: _Shape) -> dict:
-    """``a_λ v``: the sum over all permutations inside the rows (distinct images times their stabiliser)."""
+def _rearrange(vec: dict, blocks, choices) -> dict:
+    """``Σ`` over independent rearrangements of the coordinate ``blocks`` of every word in ``vec``.
+
+    ``choices(letters)`` lists ``(new letters, weight)`` for one block, or ``None`` when the whole
+    term vanishes; the weights of the blocks multiply.
+    """
     out = defaultdict(int)
     for w, c in vec.items():
         parts = []
-        for coords in sh.rows:
-            letters = [w[i] for i in coords]
-            stab = math.prod(math.factorial(v) for v in Counter(letters).values())
-            parts.append([(p, stab) for p in set(itertools.permutations(letters))])
-        for combo in itertools.product(*parts):
-            nw, coef = list(w), c
-            for coords, (p, stab) in zip(sh.rows, combo):
-                for i, letter in zip(coords, p):
-                    nw[i] = letter
-                coef *= stab
-            out[tuple(nw)] += coef
-    return dict(out)
+        for coords in blocks:
+            opts = choices([w[i] for i in coords])
+            if opts is None:
+                break
+            parts.append(opts)
+        else:
+            for combo in itertools.product(*parts):
+                nw, coef = list(w), c
+                for coords, (p, weight) in zip(blocks, combo):
+                    for i, letter in zip(coords, p):
+                        nw[i] = letter
+                    coef *= weight
+                out[tuple(nw)] += coef
+    return {k: v for k, v in out.items() if v}
+
+
+def _row_choices(letters):
+    """Distinct arrangements of one row, each standing for its stabiliser's many permutations."""
+    stab = math.prod(math.factorial(v) for v in Counter(letters).values())
+    return [(p, stab) for p in set(itertools.permutations(letters))]
+
+
+_SIGNED: dict[int, list] = {}
+
+
+def _column_choices(letters):
+    """Signed permutations of one column; ``None`` (the term vanishes) on a repeated letter."""
+    if len(set(letters)) < len(letters):
+        return None
+    h = len(letters)
+    if h not in _SIGNED:
+        _SIGNED[h] = [(p, _sign(p)) for p in itertools.permutations(range(h))]
+    return [(tuple(letters[k] for k in p), s) for p, s in _SIGNED[h]]
+
+
+def _row_symmetrise(vec: dict, sh: _Shape) -> dict:
+    """``a_λ v``: the sum over all permutations inside the rows."""
+    return _rearrange(vec, sh.rows, _row_choices)
+
+
+def _column_antisymmetrise(vec: dict, sh: _Shape) -> dict:
+    """``b_λ v``: the signed sum over permutations inside the columns (zero on a repeated letter)."""
+    return _rearrange(vec, sh.cols, _column_choices)
 
 
 def _sign(p) -> int:
@@ -203,33 +238,6 @@ def _sign(p) -> int:
             p[i], p[j] = p[j], p[i]
             s = -s
     return s
-
-
-def _column_antisymmetrise(vec: dict, sh: _Shape) -> dict:
-    """``b_λ v``: the signed sum over permutations inside the columns (zero on a repeated letter)."""
-    signed = {}
-    out = defaultdict(int)
-    for w, c in vec.items():
-        parts = []
-        for coords in sh.cols:
-            letters = [w[i] for i in coords]
-            if len(set(letters)) < len(letters):
-                parts = None
-                break
-            h = len(coords)
-            if h not in signed:
-                signed[h] = [(p, _sign(p)) for p in itertools.permutations(range(h))]
-            parts.append([(tuple(letters[k] for k in p), s) for p, s in signed[h]])
-        if parts is None:
-            continue
-        for combo in itertools.product(*parts):
-            nw, coef = list(w), c
-            for coords, (p, s) in zip(sh.cols, combo):
-                for i, letter in zip(coords, p):
-                    nw[i] = letter
-                coef *= s
-            out[tuple(nw)] += coef
-    return {k: v for k, v in out.items() if v}
 
 
 # ---------------------------------------------------------------------------------------------

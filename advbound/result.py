@@ -12,7 +12,7 @@ import dataclasses
 import math
 from typing import Any
 
-from . import status as _status
+from advbound import status as _status
 
 __all__ = ["SolverStats", "SolveResult"]
 
@@ -51,7 +51,7 @@ class SolveResult:
     solver_stats : SolverStats
     certificate : Certificate or None
     verification : object or None
-        The :class:`~advbound.verify.VerificationReport` behind ``lower`` and ``upper``.
+        The :class:`~advbound.evidence.verify.VerificationReport` behind ``lower`` and ``upper``.
     """
 
     message: str

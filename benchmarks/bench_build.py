@@ -10,7 +10,7 @@ each build time to the first (baseline) instance measured in the same run.
 import argparse
 import time
 
-from advbound.builders import position_search_composition
+from advbound.functions.builders import position_search_composition
 
 
 def main():

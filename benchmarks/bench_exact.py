@@ -1,4 +1,4 @@
-"""Timing of the exact t-query program (advbound.exact), with the symmetry reduction on and off.
+"""Timing of the exact t-query program (advbound.programs.exact), with the symmetry reduction on and off.
 
 Usage::
 
@@ -20,9 +20,9 @@ import time
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
 
-from advbound.builders import or_function, parity_function, position_search_row  # noqa: E402
-from advbound.exact import exact_success  # noqa: E402
-from advbound.function import PartialFunction  # noqa: E402
+from advbound.functions.builders import or_function, parity_function, position_search_row  # noqa: E402
+from advbound.programs.exact import exact_success  # noqa: E402
+from advbound.functions.function import PartialFunction  # noqa: E402
 
 
 def search(n: int) -> PartialFunction:
@@ -33,7 +33,7 @@ def search(n: int) -> PartialFunction:
 
 def or_of_rows(T: int) -> PartialFunction:
     """OR of 3 position-search rows restricted to k_1 + k_2 + k_3 = T (instances/or3_sum_T.toml)."""
-    from advbound.instance import load_function
+    from advbound.functions.instance import load_function
     here = os.path.join(os.path.dirname(__file__), "..", "instances", "or3_sum_T.toml")
     return load_function(here, {"T": T})
 

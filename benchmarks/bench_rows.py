@@ -6,8 +6,8 @@ Typical call (from the repository root)::
     OMP_NUM_THREADS=1 python benchmarks/bench_rows.py --cases 6:12:1 --no-dense
 
 A case is ``rows:T`` or ``rows:T:max_ones``.  For each case it builds the function once, then
-times the dense program (``advbound.solve``, CLARABEL, the baseline) and the row-symmetric one
-(``advbound.rowsym``: build of the reduced program, and the solve) in the same run, and prints the
+times the dense program (``advbound.programs.solve``, CLARABEL, the baseline) and the row-symmetric one
+(``advbound.programs.rowsym``: build of the reduced program, and the solve) in the same run, and prints the
 speed-up as a ratio together with both values.  Seconds are this machine's own figures.
 """
 
@@ -24,7 +24,7 @@ def main(argv=None) -> int:
     ap.add_argument("--no-dense", action="store_true", help="skip the dense baseline (large cases)")
     a = ap.parse_args(argv)
     warnings.simplefilter("ignore")
-    from advbound.rowsym import formulate_rows, gamma_on_orbits, position_search_family, reduced_lower_bound, \
+    from advbound.programs.rowsym import formulate_rows, gamma_on_orbits, position_search_family, reduced_lower_bound, \
         solve_reduced
 
     print(f"{'case':>10} {'|D|':>8} {'orbits':>6} {'weights':>8} {'largest block':>13} "
@@ -42,8 +42,8 @@ def main(argv=None) -> int:
         t_rows = time.perf_counter() - t0
         t_dense, dense_value = float("nan"), float("nan")
         if not a.no_dense:
-            from advbound.rowsym import expand_gamma
-            from advbound.solve import solve
+            from advbound.programs.rowsym import expand_gamma
+            from advbound.programs.solve import solve
             f, _ = expand_gamma(prog, g)
             t0 = time.perf_counter()
             r = solve(f, solver="CLARABEL")

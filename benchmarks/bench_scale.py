@@ -1,7 +1,7 @@
 """Dense reference SDP vs the factored solver, and the large-instance lower bound, in one run.
 
 Instances: OR_n of position-search rows of length ``T - n + 1`` restricted to ``sum_i k_i = T``
-(built with ``advbound.builders.compose``).  Each case runs in its own subprocess with a wall-clock
+(built with ``advbound.functions.builders.compose``).  Each case runs in its own subprocess with a wall-clock
 limit, so its peak resident memory (``ru_maxrss`` from ``os.wait4``) is its own.  For every instance
 both methods finish, the dense optimum must lie in the factored solver's verified bracket widened by
 ``1e-5`` relative ("agree" column).  The ratio columns are factored / dense.
@@ -33,20 +33,20 @@ def _child(kind: str, n: int, T: int, limit: float, tol: float) -> None:
     t0 = time.perf_counter()
     out = {"kind": kind, "n": n, "T": T}
     if kind == "large":
-        from advbound.largescale import large_lower_bound
+        from advbound.programs.largescale import large_lower_bound
 
         r = large_lower_bound(n, T, max_ones=1, time_limit=limit / 2)
         out.update(size=r.domain_size, lower=r.lower, upper=None, status=r.status)
     else:
-        from advbound.builders import compose, or_function, position_search_row
-        from advbound.timemodel import Budget
+        from advbound.functions.builders import compose, or_function, position_search_row
+        from advbound.functions.timemodel import Budget
 
         f = compose(or_function(n), position_search_row(T - n + 1), budget=Budget.sum_squares(T))
         out["size"] = f.size
         if kind == "dense":
             out.update(_dense(f))
         else:
-            from advbound.factored import solve_factored
+            from advbound.programs.factored import solve_factored
 
             r = solve_factored(f, tol=tol, time_limit=limit * 0.9)
             out.update(lower=r.lower, upper=r.upper, status=r.status, gap=r.relative_gap)
@@ -55,8 +55,8 @@ def _child(kind: str, n: int, T: int, limit: float, tol: float) -> None:
 
 
 def _dense(f) -> dict:
-    """The dense reference: advbound.solve with method="dense" and CLARABEL."""
-    from advbound.solve import solve
+    """The dense reference: advbound.programs.solve with method="dense" and CLARABEL."""
+    from advbound.programs.solve import solve
 
     r = solve(f, solver="CLARABEL", method="dense")
     return {"value": r.objective, "lower": r.lower, "upper": r.upper, "status": r.status}

@@ -1,4 +1,4 @@
-"""Time and peak memory of ``advbound.solve`` on the shipped instances and a few known functions.
+"""Time and peak memory of ``advbound.programs.solve`` on the shipped instances and a few known functions.
 
 Each case runs in its own subprocess, so its peak resident memory (``ru_maxrss``
 from ``os.wait4``) is its own.  The first case is a baseline measured in the
@@ -40,9 +40,9 @@ def _child(spec: str, solver: str, tol: float, params: list[str], method: str) -
     t_import = time.perf_counter()
     import cvxpy  # noqa: F401 - imported before timing so that solve_time is the solve alone
 
-    import advbound.builders as b
-    from advbound.instance import load_function, parse_params
-    from advbound.solve import solve
+    import advbound.functions.builders as b
+    from advbound.functions.instance import load_function, parse_params
+    from advbound.programs.solve import solve
 
     kind, _, what = spec.partition(":")
     if kind == "known":

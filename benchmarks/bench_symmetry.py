@@ -6,8 +6,8 @@ Typical call (from the repository root)::
     OMP_NUM_THREADS=1 nice -n 10 python benchmarks/bench_symmetry.py reach --rows 3 --T 10 12 14 --limit 600
     OMP_NUM_THREADS=1 nice -n 10 python benchmarks/bench_symmetry.py reach --rows 3 --T 10 --solvers SCS --chordal
 
-``compare`` runs the dense program (``advbound.solve.solve``, method ``dense``) and the
-symmetric one (``advbound.symmetric.solve_symmetric``) on the same instance and prints
+``compare`` runs the dense program (``advbound.programs.solve.solve``, method ``dense``) and the
+symmetric one (``advbound.programs.symmetric.solve_symmetric``) on the same instance and prints
 wall and CPU time and the verified bounds.  ``reach`` runs only the symmetric program (``--chordal``: with chordal blocks),
 each instance in a subprocess killed after ``--limit`` seconds, and stops a family at
 its first failure.  Every line is also appended as JSON to ``--out``.
@@ -25,17 +25,17 @@ import time
 _RUN = r"""
 import json, sys, time, warnings
 warnings.simplefilter("ignore")
-from advbound.builders import compose, or_function, position_search_row
-from advbound.timemodel import Budget
+from advbound.functions.builders import compose, or_function, position_search_row
+from advbound.functions.timemodel import Budget
 rows, T, method, solver, tol = int(sys.argv[1]), int(sys.argv[2]), sys.argv[3], sys.argv[4], float(sys.argv[5])
 chordal = sys.argv[6] == "1"
 f = compose(or_function(rows), [position_search_row(T - rows + 1)] * rows, budget=Budget.sum_squares(T))
 w0, c0 = time.perf_counter(), time.process_time()
 if method == "dense":
-    from advbound.solve import solve
+    from advbound.programs.solve import solve
     r = solve(f, solver=solver, tol=tol)
 else:
-    from advbound.symmetric import solve_symmetric
+    from advbound.programs.symmetric import solve_symmetric
     r = solve_symmetric(f, solver=solver, tol=tol, chordal=chordal)
 out = dict(rows=rows, T=T, inputs=f.size, method=method + ("+chordal" if chordal else ""), solver=solver,
            tol=tol, status=r.status,

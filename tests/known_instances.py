@@ -1,7 +1,7 @@
 """Small functions with adversary bounds known from outside advbound, built independently of the builders.
 
 Every function here is built with :meth:`PartialFunction.from_pairs` and
-``itertools`` only, so the tests do not depend on :mod:`advbound.builders`.
+``itertools`` only, so the tests do not depend on :mod:`advbound.functions.builders`.
 Each :class:`Known` entry records its expected value and where it comes from.
 """
 
@@ -12,7 +12,7 @@ import itertools
 import math
 from typing import Callable, Sequence
 
-from advbound.function import PartialFunction
+from advbound.functions.function import PartialFunction
 
 __all__ = ["Known", "boolean", "from_rule", "search_row", "or_of_search_rows", "KNOWN", "TRUTH_TABLE_PAPER"]
 

@@ -15,7 +15,7 @@ import itertools
 
 from hypothesis import strategies as st
 
-from advbound.function import PartialFunction
+from advbound.functions.function import PartialFunction
 
 __all__ = ["partial_functions", "position_permutations", "symbol_relabellings", "permute_positions",
            "relabel_symbols", "restrict"]

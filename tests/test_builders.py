@@ -1,4 +1,4 @@
-"""Builders (advbound.builders): closed-form domain sizes, brute-force enumeration, symmetries, errors."""
+"""Builders (advbound.functions.builders): closed-form domain sizes, brute-force enumeration, symmetries, errors."""
 
 import itertools
 import math
@@ -6,15 +6,15 @@ import time
 
 import pytest
 
-from advbound.builders import (
-    and_function, block_generators, compose, dead_positions, exact_function, from_predicate,
-    is_automorphism, majority_function, named_function, or_function, parity_function,
-    position_search_composition, position_search_row, threshold_function, time_profiles,
-    check_domain_size, usable_row_lengths,
-)
+from advbound.functions.builders import (
+                                         and_function, block_generators, compose, dead_positions, exact_function, from_predicate,
+                                         is_automorphism, majority_function, named_function, or_function, parity_function,
+                                         position_search_composition, position_search_row, threshold_function, time_profiles,
+                                         check_domain_size, usable_row_lengths,
+                                         )
 from advbound.errors import InvalidFunctionError
-from advbound.function import PartialFunction
-from advbound.timemodel import Budget, TimeModel
+from advbound.functions.function import PartialFunction
+from advbound.functions.timemodel import Budget, TimeModel
 
 
 # ---------------------------------------------------------------------------------------------

@@ -1,4 +1,4 @@
-"""Tests of advbound.certificate: lossless, pickle-free save/load and rejection of malformed files."""
+"""Tests of advbound.evidence.certificate: lossless, pickle-free save/load and rejection of malformed files."""
 
 import json
 import math
@@ -7,10 +7,10 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from advbound.certificate import FORMAT, Certificate, load_certificate, save_certificate
+from advbound.evidence.certificate import FORMAT, Certificate, load_certificate, save_certificate
 from advbound.errors import CertificateError
-from advbound.solve import solve
-from advbound.verify import verify_certificate
+from advbound.programs.solve import solve
+from advbound.evidence.verify import verify_certificate
 
 from known_instances import boolean, from_rule
 
@@ -168,7 +168,7 @@ def test_wide_alphabet(tmp_path):
     save_certificate(c, p)
     d = load_certificate(p)
     assert verify_certificate(d).lower == pytest.approx(1.0, rel=1e-12)
-    from advbound.rigorous import verify_rigorous
+    from advbound.evidence.rigorous import verify_rigorous
     rig = verify_rigorous(d)
     assert rig.verified and rig.lower_exact <= 1
 

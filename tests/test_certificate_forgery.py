@@ -1,7 +1,7 @@
 """Forged and malformed certificate files: each breach of the acceptance rule is refused everywhere.
 
 Every case below is a real ``.npz`` file (or a file that pretends to be one) written byte for
-byte, then read through the Python API (:func:`advbound.certificate.load_certificate`) and
+byte, then read through the Python API (:func:`advbound.evidence.certificate.load_certificate`) and
 through the command line (``verify``, ``verify --rigorous``, ``export``): exit code 2, one line
 on stderr naming the file and the defect, and the word VERIFIED never printed.
 """
@@ -16,11 +16,11 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from advbound.certificate import Certificate, check_acceptance, load_certificate, save_certificate
+from advbound.evidence.certificate import Certificate, check_acceptance, load_certificate, save_certificate
 from advbound.cli import main
 from advbound.errors import CertificateError
-from advbound.rigorous import verify_rigorous
-from advbound.verify import verify_certificate
+from advbound.evidence.rigorous import verify_rigorous
+from advbound.evidence.verify import verify_certificate
 
 FORMAT = "advbound-certificate/1"
 

@@ -1,6 +1,6 @@
-"""The top-level error handling of ``advbound`` (advbound/cli.py) and the up-front checks of solve, gamma and exact.
+"""The top-level error handling of ``advbound`` (advbound/cli/main.py) and the up-front checks of solve, gamma and exact.
 
-Every class of failure is driven through :func:`advbound.cli.main` (or a real process where a
+Every class of failure is driven through :func:`advbound.cli.main.main` (or a real process where a
 closed pipe is needed) and checked for its exit code, exactly one stderr line, no traceback,
 and with ``--json`` exactly one JSON object on stdout.
 """
@@ -14,14 +14,14 @@ import tempfile
 
 import pytest
 
-import advbound.commands.inspect
-import advbound.solve
-from advbound.builders import majority_function, or_function, parity_function
+import advbound.cli.inspect
+import advbound.programs.solve
+from advbound.functions.builders import majority_function, or_function, parity_function
 from advbound.cli import main, os_error_message
 from advbound.errors import InvalidFunctionError
-from advbound.function import PartialFunction
-from advbound.sizing import (MEMORY_LIMIT_ENV, TooLargeError, check_memory, exact_estimate, memory_budget,
-                             solve_estimate)
+from advbound.functions.function import PartialFunction
+from advbound.functions.sizing import (MEMORY_LIMIT_ENV, TooLargeError, check_memory, exact_estimate, memory_budget,
+                                       solve_estimate)
 
 ROOT = os.path.join(os.path.dirname(__file__), "..")
 
@@ -87,7 +87,7 @@ def test_os_errors_one_line(tmp_path, capsys, monkeypatch, exc, expected):
     tmp = str(tmp_path)
     if exc.filename is not None:
         exc = type(exc)(exc.errno, exc.strerror, exc.filename.format(tmp=tmp))
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(exc))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(exc))
     code, out, lines = run(capsys, "inspect", "x.tbl")
     assert code == 2 and out == ""
     assert one_error(lines) == "advbound: error: " + expected.format(tmp=tmp)
@@ -113,7 +113,7 @@ def test_real_os_error_through_a_command(tmp_path, capsys):
 # ---------------------------------------------------------------------------------------------
 def test_internal_error_exit_3(capsys, monkeypatch):
     """An unexpected exception is an internal error: exit 3, one line naming type and message and the -v hint."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(RuntimeError("boom\nsecond line")))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(RuntimeError("boom\nsecond line")))
     code, out, lines = run(capsys, "inspect", "x.tbl")
     assert code == 3 and out == ""
     line = one_error(lines, "advbound: internal error: ")
@@ -123,7 +123,7 @@ def test_internal_error_exit_3(capsys, monkeypatch):
 @pytest.mark.parametrize("argv", [["-v", "inspect", "x.tbl"], ["inspect", "x.tbl", "-v"]])
 def test_internal_error_verbose_traceback(capsys, monkeypatch, argv):
     """With -v (before or after the subcommand) the traceback is printed, then the one line, exit 3."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(RuntimeError("boom")))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(RuntimeError("boom")))
     code = main(argv)
     err = capsys.readouterr().err
     assert code == 3 and "Traceback (most recent call last)" in err and "RuntimeError: boom" in err
@@ -132,7 +132,7 @@ def test_internal_error_verbose_traceback(capsys, monkeypatch, argv):
 
 def test_internal_error_json(capsys, monkeypatch):
     """--json: an internal error is one JSON object {"error", "exit": 3}; what was printed before is dropped."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(ValueError("bad"), printed='{"partial": 1}'))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(ValueError("bad"), printed='{"partial": 1}'))
     code, out, lines = run(capsys, "inspect", "x.tbl", "--json")
     d = json_error(out)
     assert code == 3 and d["exit"] == 3 and d["error"].startswith("internal error: ValueError: bad")
@@ -142,14 +142,14 @@ def test_internal_error_json(capsys, monkeypatch):
 @pytest.mark.parametrize("code_given", [0, 2, "message"])
 def test_system_exit_in_a_command_is_internal(capsys, monkeypatch, code_given):
     """A sys.exit escaping a command (even sys.exit(0)) is not taken for success or bad input: exit 3."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(SystemExit(code_given)))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(SystemExit(code_given)))
     code, out, lines = run(capsys, "inspect", "x.tbl")
     assert code == 3 and "SystemExit" in one_error(lines, "advbound: internal error: ")
 
 
 def test_keyboard_interrupt(capsys, monkeypatch):
     """Ctrl-C gives exit 130 and one line; with --json also the error object."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(KeyboardInterrupt()))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(KeyboardInterrupt()))
     code, out, lines = run(capsys, "inspect", "x.tbl")
     assert code == 130 and out == "" and lines == ["advbound: interrupted; completed results are kept"]
     code, out, lines = run(capsys, "inspect", "x.tbl", "--json")
@@ -158,7 +158,7 @@ def test_keyboard_interrupt(capsys, monkeypatch):
 
 def test_memory_error_is_bad_input(capsys, monkeypatch):
     """MemoryError is reported in one line with exit 2 and points at the size estimate."""
-    monkeypatch.setattr(advbound.commands.inspect, "run", fake_run(MemoryError()))
+    monkeypatch.setattr(advbound.cli.inspect, "run", fake_run(MemoryError()))
     code, out, lines = run(capsys, "inspect", "x.tbl")
     assert code == 2 and "out of memory" in one_error(lines)
 
@@ -168,7 +168,7 @@ def test_memory_error_is_bad_input(capsys, monkeypatch):
 # ---------------------------------------------------------------------------------------------
 def test_json_error_object_for_bad_input(tmp_path, capsys, monkeypatch):
     """--json: bad input prints exactly {"error": <the line>, "exit": 2}; the line also goes to stderr."""
-    monkeypatch.setattr(advbound.commands.inspect, "run",
+    monkeypatch.setattr(advbound.cli.inspect, "run",
                         fake_run(InvalidFunctionError("f.tbl:3: bad line"), printed="half a result"))
     code, out, lines = run(capsys, "inspect", "x.tbl", "--json")
     assert code == 2 and json_error(out) == {"error": "f.tbl:3: bad line", "exit": 2}
@@ -249,7 +249,7 @@ def no_solve(monkeypatch):
     """Make any solve fail the test: the path check must come first."""
     def _fail(*a, **k):
         raise AssertionError("solve was called before the output path was checked")
-    monkeypatch.setattr(advbound.solve, "solve", _fail)
+    monkeypatch.setattr(advbound.programs.solve, "solve", _fail)
 
 
 @pytest.fixture
@@ -298,8 +298,8 @@ def test_save_certificate_bad_paths(or3, tmp_path, capsys, no_solve, make, needl
 
 def test_save_certificate_force(or3, tmp_path, capsys):
     """--force replaces an existing certificate; the new file verifies to sqrt(3) (OR_3, common knowledge)."""
-    from advbound.certificate import load_certificate
-    from advbound.verify import verify_certificate
+    from advbound.evidence.certificate import load_certificate
+    from advbound.evidence.verify import verify_certificate
 
     cert = tmp_path / "c.npz"
     cert.write_text("old")
@@ -342,12 +342,12 @@ def test_check_memory_refuses_and_allows():
 
 def test_solve_refused_before_building(or3, capsys, monkeypatch):
     """solve past the budget: exit 2, one line with the estimate and --allow-large; the SDP is never built."""
-    import advbound.sdp
+    import advbound.programs.sdp
 
     def _no_build(*a, **k):
         raise AssertionError("the SDP was built")
 
-    monkeypatch.setattr(advbound.sdp, "formulate", _no_build)
+    monkeypatch.setattr(advbound.programs.sdp, "formulate", _no_build)
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "100")
     code, out, lines = run(capsys, "solve", or3)
     line = one_error(lines)
@@ -366,7 +366,7 @@ def test_library_solve_refuses(monkeypatch):
     """The library solve() refuses past the budget too (allow_large=False is the default)."""
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "100")
     with pytest.raises(TooLargeError, match="allow_large=True"):
-        advbound.solve.solve(or_function(2))
+        advbound.programs.solve.solve(or_function(2))
 
 
 def test_solve_estimate_grows_with_solver():
@@ -382,7 +382,7 @@ def test_solve_estimate_grows_with_solver():
 ])
 def test_exact_estimate_matches_program(f, t):
     """Without symmetry the estimate's variable and equality counts are those of formulate_exact."""
-    from advbound.exact import formulate_exact
+    from advbound.programs.exact import formulate_exact
 
     e = exact_estimate(f, t, use_symmetry=False)
     z = formulate_exact(f, t, use_symmetry=False).sizes

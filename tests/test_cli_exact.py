@@ -1,4 +1,4 @@
-"""Tests of ``advbound exact`` (advbound/commands/exact.py) through advbound.cli.main."""
+"""Tests of ``advbound exact`` (advbound/cli/exact.py) through advbound.cli.main."""
 
 import json
 import math
@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from advbound.cli import main
-from advbound.commands.exact import adversary_factor
+from advbound.cli.exact import adversary_factor
 
 INSTANCES = Path(__file__).resolve().parent.parent / "instances"
 

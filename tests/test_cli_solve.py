@@ -1,15 +1,15 @@
-"""Tests of ``advbound solve`` (advbound/commands/solve.py) through advbound.cli.main."""
+"""Tests of ``advbound solve`` (advbound/cli/solve.py) through advbound.cli.main."""
 
 import json
 import math
 
 import pytest
 
-import advbound.solve
-from advbound.certificate import load_certificate
+import advbound.programs.solve
+from advbound.evidence.certificate import load_certificate
 from advbound.cli import main
 from advbound.result import SolveResult
-from advbound.verify import verify_certificate
+from advbound.evidence.verify import verify_certificate
 
 
 @pytest.fixture
@@ -77,7 +77,7 @@ def test_bad_solver(or3, capsys):
 
 def test_unverified_exit_1(or3, monkeypatch, capsys):
     """An unverified result gives exit 1 and a one-line message on stderr."""
-    monkeypatch.setattr(advbound.solve, "solve", lambda f, **kw: SolveResult(
+    monkeypatch.setattr(advbound.programs.solve, "solve", lambda f, **kw: SolveResult(
         message="check(s) dual_repair failed", status="unverified", bound="general", lower=1.0, domain_size=f.size))
     assert main(["solve", str(or3)]) == 1
     err = capsys.readouterr().err
@@ -90,10 +90,9 @@ def test_toml_instance_with_set(capsys):
     The value is compared with the test-side construction tests/known_instances.or_of_search_rows(3, 3, 5),
     solved through the API, so the CLI, the instance loader and the API must agree.
     """
-    pytest.importorskip("advbound.instance")
     from pathlib import Path
 
-    from advbound.solve import solve
+    from advbound.programs.solve import solve
     from known_instances import or_of_search_rows
 
     path = Path(__file__).parents[1] / "instances" / "or3_sum_T.toml"

@@ -12,11 +12,8 @@ import time
 
 import pytest
 
-pytest.importorskip("advbound.instance")
-pytest.importorskip("advbound.solve")
-
 from advbound.cli import main  # noqa: E402
-from advbound.store import Store  # noqa: E402
+from advbound.studies.store import Store  # noqa: E402
 
 OR_N = textwrap.dedent("""
     # OR_n written as OR of n position-search rows of length 1 (each row is one bit)
@@ -97,7 +94,7 @@ def test_bad_study_key_is_usage_error(tmp_path, monkeypatch, capsys):
 
 def test_default_study_is_found():
     """`advbound study` without FILE uses instances/studies/default.toml of this checkout, which loads."""
-    from advbound.study import default_study_path, load_study, plan
+    from advbound.studies.study import default_study_path, load_study, plan
     path = default_study_path()
     assert path.name == "default.toml" and path.parent.name == "studies"
     st = load_study(path)
@@ -138,8 +135,8 @@ def test_sigkill_real_study_then_resume(tmp_path):
     import sys
     import time
 
-    from advbound.certificate import load_certificate
-    from advbound.verify import verify_certificate
+    from advbound.evidence.certificate import load_certificate
+    from advbound.evidence.verify import verify_certificate
 
     p = tmp_path / "s.toml"
     p.write_text(SEARCH2)
@@ -282,7 +279,7 @@ def test_invalid_point_says_fix_the_instance(tmp_path, monkeypatch, capsys):
     assert main(["study", str(p), "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "0 failed now; " in out and "invalid" not in out
-    from advbound.study import load_study, plan
+    from advbound.studies.study import load_study, plan
     fixed = plan(load_study(p))
     with Store("studies/or2-budget.sqlite", readonly=True) as st:
         states = st.states()

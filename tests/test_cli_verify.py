@@ -5,7 +5,7 @@ import math
 
 import numpy as np
 
-from advbound.certificate import Certificate, save_certificate
+from advbound.evidence.certificate import Certificate, save_certificate
 from advbound.cli import main
 
 

@@ -1,10 +1,10 @@
-"""The domain arrays (advbound.domain), checked against per-character computations done in the test."""
+"""The domain arrays (advbound.functions.domain), checked against per-character computations done in the test."""
 
 import numpy as np
 import pytest
 
-from advbound.domain import domain, symbol_dtype
-from advbound.function import PartialFunction
+from advbound.functions.domain import domain, symbol_dtype
+from advbound.functions.function import PartialFunction
 
 
 def _reference_symbols(f):

@@ -1,4 +1,4 @@
-"""Tests for advbound.exact: the exact t-query program against published values.
+"""Tests for advbound.programs.exact: the exact t-query program against published values.
 
 Every solve uses CLARABEL; ``lo`` is the verified achievable success and ``hi``
 the verified dual upper bound, so each check brackets the true optimum.
@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 
 from advbound.errors import InvalidFunctionError, SolverError
-from advbound.exact import (ExactResult, exact_success, formulate_exact, least_queries, phase_matrices,
-                            verify_dual)
-from advbound.function import PartialFunction
+from advbound.programs.exact import (ExactResult, exact_success, formulate_exact, least_queries, phase_matrices,
+                                     verify_dual)
+from advbound.functions.function import PartialFunction
 
 TOL = 1e-5
 

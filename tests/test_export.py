@@ -1,4 +1,4 @@
-"""Tests of advbound.export and the ``advbound export`` command."""
+"""Tests of advbound.evidence.export and the ``advbound export`` command."""
 
 import hashlib
 import re
@@ -9,9 +9,9 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from advbound.certificate import Certificate, save_certificate
+from advbound.evidence.certificate import Certificate, save_certificate
 from advbound.cli import main
-from advbound.export import export_latex, latex_escape, macro_suffix
+from advbound.evidence.export import export_latex, latex_escape, macro_suffix
 
 
 def _star(n, desc):

@@ -1,4 +1,4 @@
-"""Tests for advbound.fit: recovery of known synthetic laws, uncertainties, criteria, the verdict."""
+"""Tests for advbound.studies.fit: recovery of known synthetic laws, uncertainties, criteria, the verdict."""
 
 import math
 
@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 from advbound.errors import AdvboundError
-from advbound.fit import (compare_models, effective_exponent, evaluate, fit_model, model_names,
-                          ratio_trend)
+from advbound.studies.fit import (compare_models, effective_exponent, evaluate, fit_model, model_names,
+                                  ratio_trend)
 
 WIDE = np.geomspace(10, 1e4, 20)
 NARROW = np.arange(4.0, 13.0)

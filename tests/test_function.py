@@ -1,4 +1,4 @@
-"""Validation of PartialFunction (advbound.function): every error path and the canonical order."""
+"""Validation of PartialFunction (advbound.functions.function): every error path and the canonical order."""
 
 import itertools
 import random
@@ -6,7 +6,7 @@ import random
 import pytest
 
 from advbound.errors import AdvboundWarning, InvalidFunctionError
-from advbound.function import Automorphism, PartialFunction
+from advbound.functions.function import Automorphism, PartialFunction
 
 
 class TestFromPairs:

@@ -14,18 +14,18 @@ import types
 import numpy as np
 import pytest
 
-from advbound.builders import MAX_INPUTS, check_domain_size, compose, dead_positions, from_predicate, \
+from advbound.functions.builders import MAX_INPUTS, check_domain_size, compose, dead_positions, from_predicate, \
     or_function, position_search_row
 from advbound.cli import main
-from advbound.domain import domain
+from advbound.functions.domain import domain
 from advbound.errors import InvalidFunctionError, InvalidInstanceError
-from advbound.function import Automorphism, PartialFunction
-from advbound.instance import (
-    build_instance, grid_size, iter_grid_points, load_instance, parse_instance, resolved, spec_key,
-)
-from advbound.symmetry import element_from_automorphism
-from advbound.tablefile import read_table, write_table
-from advbound.timemodel import Budget
+from advbound.functions.function import Automorphism, PartialFunction
+from advbound.functions.instance import (
+                                         build_instance, grid_size, iter_grid_points, load_instance, parse_instance, resolved, spec_key,
+                                         )
+from advbound.functions.symmetry import element_from_automorphism
+from advbound.functions.tablefile import read_table, write_table
+from advbound.functions.timemodel import Budget
 
 OR3 = """
 [instance]
@@ -235,7 +235,7 @@ class TestBudgetBoundsTheBuild:
 
     def test_memory_estimate_refused(self, monkeypatch):
         """A domain that fits max_inputs but not the available memory is refused with both figures."""
-        monkeypatch.setattr("advbound.builders._available_memory", lambda: 1 << 20)
+        monkeypatch.setattr("advbound.functions.builders._available_memory", lambda: 1 << 20)
         with pytest.raises(InvalidFunctionError, match=r"would have 20,000 inputs on 100 positions \(about 3\.13 MB\), "
                                                        r"more than the 1 MB of memory available"):
             check_domain_size(20000, 100)
@@ -318,7 +318,7 @@ class TestLargeAlphabets:
     def test_solve_wide_alphabet(self):
         """One position, symbols 140..159: ADV± = 1 (derivation: Delta_1 is every pair of distinct inputs,
         so ||Gamma o Delta_1|| = ||Gamma|| for every Gamma)."""
-        from advbound.solve import solve
+        from advbound.programs.solve import solve
         pairs = [(self.ALPHA[i], i % 2) for i in range(140, 160)]
         f = PartialFunction.from_pairs(self.ALPHA, pairs)
         r = solve(f, "general", solver="CLARABEL")

@@ -1,4 +1,4 @@
-"""Instance files (advbound.instance): expressions, schema errors, grids, keys, building, shipped files."""
+"""Instance files (advbound.functions.instance): expressions, schema errors, grids, keys, building, shipped files."""
 
 import glob
 import json
@@ -8,13 +8,13 @@ import textwrap
 
 import pytest
 
-from advbound.builders import compose, or_function, position_search_row
+from advbound.functions.builders import compose, or_function, position_search_row
 from advbound.errors import InvalidInstanceError
-from advbound.instance import (
-    build_instance, evaluate, grid_points, load_function, load_instance, parse_instance, parse_params,
-    resolved, spec_key, time_model_of,
-)
-from advbound.timemodel import Budget, TimeModel
+from advbound.functions.instance import (
+                                         build_instance, evaluate, grid_points, load_function, load_instance, parse_instance, parse_params,
+                                         resolved, spec_key, time_model_of,
+                                         )
+from advbound.functions.timemodel import Budget, TimeModel
 
 HERE = os.path.dirname(__file__)
 INSTANCES = os.path.join(HERE, "..", "instances")

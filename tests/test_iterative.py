@@ -1,4 +1,4 @@
-"""Tests of the matrix-free norm bounds in advbound.iterative against dense LAPACK norms."""
+"""Tests of the matrix-free norm bounds in advbound.evidence.iterative against dense LAPACK norms."""
 
 import math
 
@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from advbound.iterative import (lanczos_failure_epsilon, norm_lower, norm_upper_blocks, norm_upper_lowrank,
-                                norm_upper_nonnegative, norm_upper_probabilistic)
+from advbound.evidence.iterative import (lanczos_failure_epsilon, norm_lower, norm_upper_blocks, norm_upper_lowrank,
+                                         norm_upper_nonnegative, norm_upper_probabilistic)
 
 
 def _dense_norm(a):

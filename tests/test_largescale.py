@@ -1,4 +1,4 @@
-"""Tests of the large-instance lower bounds (advbound.largescale) against dense definitions and exact values."""
+"""Tests of the large-instance lower bounds (advbound.programs.largescale) against dense definitions and exact values."""
 
 import math
 
@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 
 from advbound import quantities
-from advbound.domain import domain
+from advbound.functions.domain import domain
 from advbound.errors import InvalidFunctionError
-from advbound.factored import solve_factored
-from advbound.largescale import (arrays_from_function, family_function, large_lower_bound, lowrank_ratio,
-                                 position_search_or_arrays, product_weights_factors)
+from advbound.programs.factored import solve_factored
+from advbound.programs.largescale import (arrays_from_function, family_function, large_lower_bound, lowrank_ratio,
+                                          position_search_or_arrays, product_weights_factors)
 
 
 def _dense_gamma(arr, f, p, q):
@@ -36,8 +36,8 @@ def test_family_size(n, T):
 
 def test_family_matches_builder():
     """The array enumeration equals builders.compose(or_function(3), position_search_row(4), budget sum k = 6)."""
-    builders = pytest.importorskip("advbound.builders")
-    from advbound.timemodel import Budget
+    import advbound.functions.builders as builders
+    from advbound.functions.timemodel import Budget
 
     f = builders.compose(builders.or_function(3), builders.position_search_row(4), budget=Budget.sum_squares(6))
     g = family_function(position_search_or_arrays(3, 6))
@@ -95,7 +95,7 @@ def test_lower_bound_below_exact_value():
 
 def test_rejects_non_family_function():
     """A function without row groups is refused with a message naming the requirement."""
-    from advbound.function import PartialFunction
+    from advbound.functions.function import PartialFunction
 
     f = PartialFunction.from_pairs("01*", [("0*", 0), ("1*", 1)])
     with pytest.raises(InvalidFunctionError, match="groups"):

@@ -372,9 +372,9 @@ def test_directory(tmp_path):
 @pytest.fixture(scope="module")
 def solved_or2(tmp_path_factory):
     """OR_2 solved by advbound (general bound, with its dual witness), as a dict of arrays."""
-    from advbound.certificate import save_certificate
-    from advbound.function import PartialFunction
-    from advbound.solve import solve
+    from advbound.evidence.certificate import save_certificate
+    from advbound.functions.function import PartialFunction
+    from advbound.programs.solve import solve
 
     f = PartialFunction.from_pairs("01", [(x, "0" if x == "00" else "1") for x in ("00", "01", "10", "11")])
     res = solve(f, solver="CLARABEL", tol=1e-9)

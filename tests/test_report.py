@@ -1,4 +1,4 @@
-"""Tests for advbound.report: series from the store, well-formed report files (figures, LaTeX, CSV, JSON)."""
+"""Tests for advbound.studies.report: series from the store, well-formed report files (figures, LaTeX, CSV, JSON)."""
 
 import csv
 import json
@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 
 from advbound.errors import AdvboundError
-from advbound.report import collect_series, fit_series, latex_fit_table, latex_results_table, write_report
-from advbound.store import Store, make_row, run_key
+from advbound.studies.report import collect_series, fit_series, latex_fit_table, latex_results_table, write_report
+from advbound.studies.store import Store, make_row, run_key
 
 META = {"name": "syn", "growth": "T", "series": "rows", "laws": ["sqrt", "sqrt_log", "power"],
         "offsets": [False, True], "bootstrap": 20, "seed": 0, "bounds": ["general"],
@@ -118,7 +118,7 @@ def test_latex_compiles_when_pdflatex_exists(tmp_path):
 
 def test_latex_escapes_underscores():
     """Underscores in labels are escaped for LaTeX."""
-    from advbound.report import Series
+    from advbound.studies.report import Series
     s = Series("my_bound", "a_b", (4.0,), (2.0,), (None,), (8,), ())
     text = latex_results_table([s])
     assert r"my\_bound" in text and r"a\_b" in text and "--" in text
@@ -150,7 +150,7 @@ EXACT_META = dict(META, series=None, growth="n", grid={"n": [2, 3, 16]},
 
 
 def _exact_row(key, n, request, status="optimal", **values):
-    """An exact row as advbound.study stores it: lower/upper = verified success / upper bound."""
+    """An exact row as advbound.studies.study stores it: lower/upper = verified success / upper bound."""
     if status == "failed":
         return make_row(key, kind="exact", spec_key=str(n), spec={}, params={"n": n}, status="failed",
                         error="SolverError: synthetic", solver=request)
@@ -191,7 +191,7 @@ def test_adversary_check_values():
     """factor(0) = 1/2 and factor(1/2) = 0 (from the formula); OR_2 with one query at success 9/10:
     ε = 1/10, factor = (1 - 2·0.3)/2 = 0.2, so t >= 0.2·sqrt(2) = 0.28284 ("Negative weights make
     adversaries stronger", 2007, arXiv:quant-ph/0611054; ADV±(OR_2) = sqrt(2), common knowledge)."""
-    from advbound.report import adversary_check, adversary_factor
+    from advbound.studies.report import adversary_check, adversary_factor
     assert adversary_factor(0.0) == 0.5 and adversary_factor(0.5) == 0.0
     eps, need, verdict = adversary_check(1, math.sqrt(2), success=0.9)
     assert eps == pytest.approx(0.1) and need == pytest.approx(0.2 * math.sqrt(2)) and verdict == "pass"
@@ -237,7 +237,7 @@ def test_exact_latex_compiles_when_pdflatex_exists(tmp_path):
     """The exact table compiles with pdflatex and booktabs (skipped when pdflatex is absent)."""
     if shutil.which("pdflatex") is None:
         pytest.skip("pdflatex not installed; test_exact_table_and_figure checks the structure")
-    from advbound.report import collect_exact, latex_exact_table
+    from advbound.studies.report import collect_exact, latex_exact_table
     p = tmp_path / "s.sqlite"
     _fill_exact(p)
     with Store(p, readonly=True) as st:
@@ -253,7 +253,7 @@ def test_loose_points_left_out_of_fits():
     """A point whose verified gap is wide (a loose lower bound) is not fitted; tight points are."""
     import math as _m
 
-    from advbound.report import FIT_MAX_GAP, Series, _fit_points
+    from advbound.studies.report import FIT_MAX_GAP, Series, _fit_points
     T = (4.0, 8.0, 16.0, 32.0)
     lower = tuple(_m.sqrt(t) for t in T)
     upper = (lower[0], lower[1] * (1 + FIT_MAX_GAP / 10), lower[2] * 1.2, None)   # third is loose
@@ -271,7 +271,7 @@ def test_shipped_store_fit_and_report_read_only(tmp_path, monkeypatch, capsys):
     with mode=ro and leave the folder byte-for-byte unchanged (no -wal/-shm/-journal, same mtime)."""
     import stat
 
-    import advbound.store as store_mod
+    import advbound.studies.store as store_mod
     from advbound.cli import main
     if not os.path.exists(SHIPPED):
         pytest.skip("reports/scaling_rows2/results.sqlite is not in this checkout")
@@ -341,7 +341,7 @@ def test_report_lists_invalid_defective_and_certificate_rows(tmp_path, caplog):
 ])
 def test_bad_study_settings_are_one_line(tmp_path, key, value, words):
     """A hand-edited study setting of the wrong type is a one-line StoreError naming the store and key."""
-    from advbound.store import StoreError
+    from advbound.studies.store import StoreError
     p = tmp_path / "s.sqlite"
     _fill(p)
     with Store(p) as st:

@@ -1,4 +1,4 @@
-"""Tests of advbound.rigorous (exact rational certification) and of tools/recheck_certificate.py."""
+"""Tests of advbound.evidence.rigorous (exact rational certification) and of tools/recheck_certificate.py."""
 
 import math
 import subprocess
@@ -9,10 +9,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from advbound.certificate import Certificate, load_certificate, save_certificate
-from advbound.rigorous import (cholesky_shift, exact_rayleigh, floor_decimal, floor_float, prove_pd_cholesky,
-                               prove_pd_ldl, prove_pd_residual, rational_gamma, verify_rigorous)
-from advbound.verify import verify_certificate
+from advbound.evidence.certificate import Certificate, load_certificate, save_certificate
+from advbound.evidence.rigorous import (cholesky_shift, exact_rayleigh, floor_decimal, floor_float, prove_pd_cholesky,
+                                        prove_pd_ldl, prove_pd_residual, rational_gamma, verify_rigorous)
+from advbound.evidence.verify import verify_certificate
 
 RECHECK = Path(__file__).resolve().parents[1] / "tools" / "recheck_certificate.py"
 
@@ -94,7 +94,7 @@ class TestKnownBounds:
 
 class TestAgreement:
     def test_float_and_rational_agree(self):
-        """Exact bound and the float ratio of advbound.verify agree to 1e-6 (relative) on a random Γ."""
+        """Exact bound and the float ratio of advbound.evidence.verify agree to 1e-6 (relative) on a random Γ."""
         cert = random_cert(30, seed=1)
         rep = verify_rigorous(cert, safety=1e-8)
         fl = verify_certificate(cert)
@@ -124,7 +124,7 @@ class TestAgreement:
 
     @pytest.mark.parametrize("method", ["exact", "cholesky"])
     def test_standalone_rechecker_agrees(self, tmp_path, method):
-        """tools/recheck_certificate.py prints the same rational as advbound.rigorous."""
+        """tools/recheck_certificate.py prints the same rational as advbound.evidence.rigorous."""
         cert = random_cert(18, seed=4)
         path = tmp_path / "c.npz"
         save_certificate(cert, path)
@@ -259,7 +259,7 @@ class TestMoreFormats:
 
 def test_residual_int64_matches_python_integers(monkeypatch):
     """The int64 evaluation of the exact residual decides like the Python-integer one (forced fallback)."""
-    import advbound.rigorous as rig
+    import advbound.evidence.rigorous as rig
     cert = random_cert(40, seed=8)
     want = verify_rigorous(cert, method="residual")
     calls = []

@@ -5,12 +5,12 @@ import math
 import numpy as np
 import pytest
 
-from advbound.builders import position_search_composition
-from advbound.rowsym import (RowFamily, check_dimensions, expand_gamma, family_of, formulate_rows,
-                             gamma_on_orbits, partitions, position_search_family, reduced_lower_bound,
-                             semistandard_tableaux, solve_reduced, solve_rows, standard_tableaux_count)
-from advbound.solve import solve
-from advbound.verify import verify_certificate
+from advbound.functions.builders import position_search_composition
+from advbound.programs.rowsym import (RowFamily, check_dimensions, expand_gamma, family_of, formulate_rows,
+                                      gamma_on_orbits, partitions, position_search_family, reduced_lower_bound,
+                                      semistandard_tableaux, solve_reduced, solve_rows, standard_tableaux_count)
+from advbound.programs.solve import solve
+from advbound.evidence.verify import verify_certificate
 
 
 def _boolean_family(n, rule):
@@ -64,7 +64,7 @@ def test_family_of_refuses_non_interchangeable_rows():
     """A domain that is not closed under row swaps has no row family."""
     f = position_search_composition("or", 2, 3, 4)
     keep = [i for i, x in enumerate(f.inputs) if x != f.inputs[0]]
-    from advbound.function import PartialFunction
+    from advbound.functions.function import PartialFunction
     g = PartialFunction.from_pairs("".join(f.alphabet), [(f.inputs[i], f.outputs[i]) for i in keep])
     g = type(g)(g.alphabet, g.inputs, g.outputs, g.costs, groups=f.groups)
     assert family_of(g) is None
@@ -128,7 +128,7 @@ def test_reference_values_at_T8(n, expected):
 
 def test_expanded_gamma_reproduces_reduced_norms():
     """verify_certificate on the expanded Γ gives the reduced-basis ratio (independent dense check)."""
-    from advbound.certificate import Certificate
+    from advbound.evidence.certificate import Certificate
     low, prog, g = _reduced_value(position_search_family("or", 3, 7))
     f, G = expand_gamma(prog, g)
     rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G))
@@ -145,7 +145,7 @@ def test_solve_method_rows():
 
 def test_solve_rows_refuses_non_row_function():
     """A function without interchangeable rows gets a one-line refusal."""
-    from advbound.builders import majority_function
+    from advbound.functions.builders import majority_function
     from advbound.errors import InvalidFunctionError
     with pytest.raises(InvalidFunctionError, match="interchangeable rows"):
         solve_rows(majority_function(3))

@@ -1,4 +1,4 @@
-"""Tests of advbound.sdp: the formulation's structure and the raw solver output."""
+"""Tests of advbound.programs.sdp: the formulation's structure and the raw solver output."""
 
 import math
 
@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 
 from advbound import quantities as q
-from advbound.domain import domain
+from advbound.functions.domain import domain
 from advbound.errors import AdvboundWarning, InvalidFunctionError, SolverError
-from advbound.function import PartialFunction
-from advbound.sdp import formulate, solve_formulation
+from advbound.functions.function import PartialFunction
+from advbound.programs.sdp import formulate, solve_formulation
 
 from known_instances import boolean, from_rule
 

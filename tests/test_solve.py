@@ -1,4 +1,4 @@
-"""Tests of advbound.solve.solve against values known from the literature, derivations and a second route."""
+"""Tests of advbound.programs.solve.solve against values known from the literature, derivations and a second route."""
 
 import dataclasses
 import math
@@ -9,12 +9,12 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-import advbound.sdp
+import advbound.programs.sdp
 from advbound import status
 from advbound.errors import InvalidFunctionError
-from advbound.function import PartialFunction
-from advbound.solve import solve
-from advbound.verify import verify_certificate
+from advbound.functions.function import PartialFunction
+from advbound.programs.solve import solve
+from advbound.evidence.verify import verify_certificate
 
 from known_instances import KNOWN, boolean, from_rule, or_of_search_rows, search_row
 from strategies import (partial_functions, permute_positions, position_permutations, relabel_symbols, restrict,
@@ -31,7 +31,7 @@ def _assert_verified(r):
 
 
 def _reference(f: PartialFunction, bound: str = "general") -> float:
-    """Value of the plain program, written here independently of advbound.sdp.
+    """Value of the plain program, written here independently of advbound.programs.sdp.
 
     A symmetric |D|x|D| variable W (W = 0 on equal outputs), ρ >= 0 with Σρ = 1, and both
     -c_j diag(ρ) ⪯ W∘Δ_j ⪯ c_j diag(ρ) for every position, dead or not; no bipartite reduction.
@@ -216,7 +216,6 @@ class TestSolveBehaviour:
     @pytest.mark.parametrize("method", ["symmetric", pytest.param("factored", marks=pytest.mark.slow)])
     def test_method_dispatch(self, method):
         """method='symmetric'/'factored' reach their modules and give ADV±(OR_3) = sqrt(3) (common knowledge)."""
-        pytest.importorskip(f"advbound.{method}")
         r = solve(boolean(3, any), method=method)
         assert r.success, r.message
         assert r.lower == pytest.approx(math.sqrt(3), rel=1e-5)
@@ -243,13 +242,13 @@ class TestSolveBehaviour:
 
     def test_corrupted_solver_output_unverified(self, monkeypatch):
         """A solver whose dual witness is off by a factor 2 yields status 'unverified' naming dual_repair."""
-        real = advbound.sdp.solve_formulation
+        real = advbound.programs.sdp.solve_formulation
 
         def bad(*args, **kwargs):
             raw = real(*args, **kwargs)
             return dataclasses.replace(raw, dual_plus=raw.dual_plus * 0.5)
 
-        monkeypatch.setattr(advbound.sdp, "solve_formulation", bad)
+        monkeypatch.setattr(advbound.programs.sdp, "solve_formulation", bad)
         r = solve(boolean(2, any), **CLARABEL)
         assert r.status == status.UNVERIFIED and not r.success
         assert "dual_repair" in r.message and r.upper is None
@@ -269,8 +268,8 @@ def test_non_finite_solver_point_is_a_failed_status(monkeypatch):
 
     import numpy as np
 
-    from advbound import sdp
-    from advbound.builders import or_function
+    from advbound.programs import sdp
+    from advbound.functions.builders import or_function
     real = sdp.solve_formulation
 
     def broken(*a, **k):

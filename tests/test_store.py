@@ -1,4 +1,4 @@
-"""Tests for advbound.store: schema, keys, round trips, durability of single transactions."""
+"""Tests for advbound.studies.store: schema, keys, round trips, durability of single transactions."""
 
 import os
 import sqlite3
@@ -6,7 +6,7 @@ import sqlite3
 import pytest
 
 from advbound.errors import AdvboundError
-from advbound.store import SCHEMA_VERSION, Store, StoreError, make_row, package_versions, run_key
+from advbound.studies.store import SCHEMA_VERSION, Store, StoreError, make_row, package_versions, run_key
 
 SPEC = "c" * 64
 
@@ -179,7 +179,7 @@ def test_legacy_wal_store_with_pending_log(tmp_path, monkeypatch):
 def test_readonly_folder_falls_back_to_immutable(tmp_path, monkeypatch):
     """When the folder is read-only and sqlite cannot take its shared lock there (as on some read-only
     media), the open falls back to immutable=1 and still reads the rows."""
-    import advbound.store as store_mod
+    import advbound.studies.store as store_mod
     p = tmp_path / "s.sqlite"
     with Store(p) as st:
         st.put(_row("k1"))
@@ -407,7 +407,7 @@ def test_certificate_paths_are_checked_against_the_store_folder(tmp_path):
 
 # -- leases (one process; several processes: tests/test_store_concurrency.py) ------------------------
 def _holder(token, pid=None, ns=None):
-    from advbound.store import LeaseHolder
+    from advbound.studies.store import LeaseHolder
     me = LeaseHolder.current()
     return LeaseHolder(me.pid if pid is None else pid, me.host, me.ns if ns is None else ns, "", token)
 
@@ -455,7 +455,7 @@ def test_lease_keeper_renews(tmp_path):
     """The keeper thread pushes the expiry forward while a point is computed."""
     import time
 
-    from advbound.store import LeaseKeeper
+    from advbound.studies.store import LeaseKeeper
     p = tmp_path / "s.sqlite"
     me = _holder("me")
     with Store(p) as st:

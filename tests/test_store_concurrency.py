@@ -12,8 +12,8 @@ import time
 
 import pytest
 
-from advbound.store import Store
-from advbound.study import StudySpec, run_study
+from advbound.studies.store import Store
+from advbound.studies.study import StudySpec, run_study
 
 TESTS = os.path.dirname(__file__)
 
@@ -21,7 +21,7 @@ _SWEEP = textwrap.dedent("""
     import json, os, sys, time
     sys.path.insert(0, {tests!r})
     import test_study as t
-    from advbound.study import StudySpec, run_study
+    from advbound.studies.study import StudySpec, run_study
 
     calls = [0]
 

@@ -1,4 +1,4 @@
-"""Tests for advbound.study: planning, resumable execution, failures, durability under SIGKILL, pools, dask."""
+"""Tests for advbound.studies.study: planning, resumable execution, failures, durability under SIGKILL, pools, dask."""
 
 import hashlib
 import itertools
@@ -15,14 +15,14 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from advbound.certificate import Certificate, load_certificate
+from advbound.evidence.certificate import Certificate, load_certificate
 from advbound.errors import AdvboundError, InvalidInstanceError
-from advbound.store import Store
-from advbound.study import Progress, StudySpec, load_study, plan, run_study, solve_point, solver_settings
+from advbound.studies.store import Store
+from advbound.studies.study import Progress, StudySpec, load_study, plan, run_study, solve_point, solver_settings
 
 
 def fake_api(grid):
-    """A stand-in for advbound.instance over a plain cartesian grid (keys in the order given)."""
+    """A stand-in for advbound.functions.instance over a plain cartesian grid (keys in the order given)."""
     keys = list(grid)
 
     def grid_points(spec):
@@ -167,7 +167,7 @@ _KILL_SCRIPT = textwrap.dedent("""
     import sys, time
     sys.path.insert(0, {tests!r})
     import test_study as t
-    from advbound.study import StudySpec, run_study
+    from advbound.studies.study import StudySpec, run_study
 
     def slow(task):
         time.sleep(0.15)
@@ -239,7 +239,6 @@ def _write(tmp_path, study_table):
 
 def test_load_study_keys(tmp_path):
     """The [study] keys are read; store, certificates and report default from the name."""
-    pytest.importorskip("advbound.instance")
     p = _write(tmp_path, 'name = "demo"\nbounds = ["general", "positive"]\ntol = 1e-6\noffsets = false\n')
     st = load_study(p)
     assert (st.name, st.bounds, st.tol, st.offsets) == ("demo", ("general", "positive"), 1e-6, (False,))
@@ -259,7 +258,6 @@ def test_load_study_keys(tmp_path):
 ])
 def test_load_study_rejects(tmp_path, table, where):
     """A bad [study] entry raises InvalidInstanceError naming the file and the key."""
-    pytest.importorskip("advbound.instance")
     p = _write(tmp_path, table)
     with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\].*{where}"):
         load_study(p)
@@ -329,7 +327,6 @@ def test_exact_rows_stored_failed_and_retried(tmp_path, monkeypatch):
 
 def test_load_study_exact(tmp_path):
     """[study] exact is normalised (defaults filled) and yields 3 exact points per grid point."""
-    pytest.importorskip("advbound.instance")
     p = _write(tmp_path, 'exact = { queries = [1, 2], error = 0.1, max_queries = 4 }\n')
     st = load_study(p)
     assert st.exact == dict(_EXACT, max_queries=4)
@@ -347,7 +344,6 @@ def test_load_study_exact(tmp_path):
 ])
 def test_load_study_rejects_exact(tmp_path, table, where):
     """A bad [study] exact entry raises InvalidInstanceError naming the file and the key."""
-    pytest.importorskip("advbound.instance")
     p = _write(tmp_path, table)
     with pytest.raises(InvalidInstanceError, match=rf"s\.toml: \[study\] exact.*{where}"):
         load_study(p)
@@ -355,7 +351,7 @@ def test_load_study_rejects_exact(tmp_path, table, where):
 
 # -- invalid points, defective rows, certificate paths ----------------------------------------------
 def invalid_api(grid, bad):
-    """fake_api whose instance cannot be resolved at T in ``bad``, as advbound.instance refuses a row
+    """fake_api whose instance cannot be resolved at T in ``bad``, as advbound.functions.instance refuses a row
     length below 1 (the message names the grid point)."""
     api = fake_api(grid)
     base_key, base_resolved = api.spec_key, api.resolved
@@ -393,7 +389,7 @@ def test_unresolvable_grid_point_stored_invalid_never_computed(tmp_path):
     message, never handed to the solver, not retried by retry_failed; once the instance is fixed the
     point gets a new key and is computed, and the old invalid row is removed (and would count as
     replaced in a report)."""
-    from advbound.report import invalid_points
+    from advbound.studies.report import invalid_points
     st = _study(tmp_path)
     runner = _Counting()
     pts = plan(st, invalid_api({"T": [3, 4, 5]}, {3}))
@@ -442,7 +438,7 @@ def test_build_failure_stored_invalid_and_not_retried(tmp_path):
 def test_solve_point_reports_build_errors_as_invalid(tmp_path):
     """solve_point turns an AdvboundError of build_instance into invalid = True with the one-line message:
     two position-search rows need sum t_i^2 >= 2 with t_k = sqrt(k) (derived), so a budget of 1.5 is empty."""
-    inst = pytest.importorskip("advbound.instance")
+    import advbound.functions.instance as inst
     p = tmp_path / "b.toml"
     p.write_text(textwrap.dedent("""
         [instance]

@@ -1,6 +1,6 @@
 """A study whose grid has a point the instance cannot build stores it as invalid and computes the rest."""
 from advbound.cli import main
-from advbound.store import Store
+from advbound.studies.store import Store
 
 STUDY = """
 [instance]

@@ -1,4 +1,4 @@
-"""Tests for advbound.symmetric: the invariant, block-diagonalised adversary program."""
+"""Tests for advbound.programs.symmetric: the invariant, block-diagonalised adversary program."""
 
 import math
 
@@ -6,16 +6,16 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from advbound.builders import (compose, exact_function, majority_function, or_function, parity_function,
-                               position_search_row)
-from advbound.domain import domain
+from advbound.functions.builders import (compose, exact_function, majority_function, or_function, parity_function,
+                                         position_search_row)
+from advbound.functions.domain import domain
 from advbound.errors import InvalidFunctionError, SolverError
-from advbound.function import PartialFunction
-from advbound.symmetric import chordal_cliques, formulate_symmetric, solve_symmetric
-from advbound.symmetry import Group
+from advbound.functions.function import PartialFunction
+from advbound.programs.symmetric import chordal_cliques, formulate_symmetric, solve_symmetric
+from advbound.functions.symmetry import Group
 from advbound.quantities import adversary_ratio
-from advbound.timemodel import Budget
-from advbound.verify import verify_certificate
+from advbound.functions.timemodel import Budget
+from advbound.evidence.verify import verify_certificate
 
 
 def _rows(T, rows=3):
@@ -215,7 +215,7 @@ class TestChordal:
     def test_psd_completion(self):
         """Completing a PSD matrix known only on the cliques of its pattern gives a PSD matrix that
         agrees on those entries (the completion theorem of 1984 cited in the code)."""
-        from advbound.symmetric import _psd_completion
+        from advbound.programs.symmetric import _psd_completion
         rng = np.random.default_rng(8)
         p = rng.random((30, 30)) < 0.1
         p = p | p.T

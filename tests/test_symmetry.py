@@ -1,18 +1,18 @@
-"""Tests for advbound.symmetry: automorphism groups, orbits, stabilisers, averaging."""
+"""Tests for advbound.functions.symmetry: automorphism groups, orbits, stabilisers, averaging."""
 
 import math
 
 import numpy as np
 import pytest
 
-from advbound.builders import (compose, is_automorphism, majority_function, or_function, parity_function,
-                               position_search_row)
+from advbound.functions.builders import (compose, is_automorphism, majority_function, or_function, parity_function,
+                                         position_search_row)
 from advbound.errors import InvalidFunctionError
-from advbound.function import Automorphism, PartialFunction
-from advbound.symmetry import (average_gamma, average_weights, automorphism_group, orbits_of_inputs,
-                               orbits_of_pairs, position_orbits, stabilizer)
-from advbound.tablefile import parse_table
-from advbound.timemodel import Budget
+from advbound.functions.function import Automorphism, PartialFunction
+from advbound.functions.symmetry import (average_gamma, average_weights, automorphism_group, orbits_of_inputs,
+                                         orbits_of_pairs, position_orbits, stabilizer)
+from advbound.functions.tablefile import parse_table
+from advbound.functions.timemodel import Budget
 
 
 def _closure(G):

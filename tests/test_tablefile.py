@@ -1,11 +1,11 @@
-"""Table files (advbound.tablefile): parsing, errors naming file and line, exact round trips."""
+"""Table files (advbound.functions.tablefile): parsing, errors naming file and line, exact round trips."""
 
 import pytest
 
-from advbound.builders import position_search_composition
+from advbound.functions.builders import position_search_composition
 from advbound.errors import AdvboundWarning, InvalidFunctionError
-from advbound.function import PartialFunction
-from advbound.tablefile import parse_table, read_table, sort_symbols, write_table, write_text
+from advbound.functions.function import PartialFunction
+from advbound.functions.tablefile import parse_table, read_table, sort_symbols, write_table, write_text
 
 
 def same(f, g):

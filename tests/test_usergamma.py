@@ -1,4 +1,4 @@
-"""Tests of advbound.usergamma and the ``advbound gamma`` command."""
+"""Tests of advbound.evidence.usergamma and the ``advbound gamma`` command."""
 
 import math
 import os
@@ -8,9 +8,9 @@ import pytest
 import scipy.sparse as sp
 
 from advbound.cli import main
-from advbound.function import PartialFunction
-from advbound.usergamma import (GammaError, evaluate_gamma, gamma_from_callable, gamma_from_entries, improve_gamma,
-                                load_callable)
+from advbound.functions.function import PartialFunction
+from advbound.evidence.usergamma import (GammaError, evaluate_gamma, gamma_from_callable, gamma_from_entries, improve_gamma,
+                                         load_callable)
 
 
 def or_weight1(n):

@@ -1,12 +1,12 @@
-"""Tests of advbound.verify against hand-made certificates whose bounds are derived in the docstrings."""
+"""Tests of advbound.evidence.verify against hand-made certificates whose bounds are derived in the docstrings."""
 
 import math
 
 import numpy as np
 import pytest
 
-from advbound.certificate import Certificate
-from advbound.verify import extract_gamma, verify_certificate
+from advbound.evidence.certificate import Certificate
+from advbound.evidence.verify import extract_gamma, verify_certificate
 
 from known_instances import boolean
 

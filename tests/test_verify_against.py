@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from advbound.certificate import Certificate, save_certificate
+from advbound.evidence.certificate import Certificate, save_certificate
 from advbound.cli import main
-from advbound.export import export_rows, match_instance
-from advbound.instance import load_function, load_instance, spec_key
-from advbound.verify import function_difference
+from advbound.evidence.export import export_rows, match_instance
+from advbound.functions.instance import load_function, load_instance, spec_key
+from advbound.evidence.verify import function_difference
 
 ROOT = Path(__file__).resolve().parent.parent
 OR3 = ROOT / "instances" / "or3_sum_T.toml"

@@ -1,0 +1,130 @@
+"""``advbound verify CERT.npz``: recompute a certificate's lower bound from the file alone.
+
+The float path (:func:`advbound.evidence.verify.verify_certificate`, built on
+:mod:`advbound.quantities`) always runs; ``--rigorous`` adds the exact rational
+check of :mod:`advbound.evidence.rigorous`.  Typical use::
+
+    advbound verify or4.npz --rigorous --json
+    advbound verify or3-T6.npz --against instances/or3_sum_T.toml --set T=6
+
+A file that breaks the acceptance rule (:func:`advbound.evidence.certificate.check_acceptance`)
+is refused with one line before anything is computed.  ``--against`` also checks that
+the certificate's function is exactly the instance's (:func:`advbound.evidence.export.match_instance`).
+
+Exit codes: 0 verified, 1 a check failed (including a function that is not the
+instance's), 2 unreadable or malformed file, bad instance or bad option.
+"""
+
+from __future__ import annotations
+
+import json
+
+__all__ = ["register", "run"]
+
+
+def register(subparsers) -> None:
+    """Add the ``verify`` parser to ``subparsers``."""
+    p = subparsers.add_parser("verify", help="re-check a certificate file (float, or exact with --rigorous)",
+                              description="Recompute the lower bound ||Γ|| / max_j ||Γ∘Δ_j||/c_j from a "
+                                          "certificate file alone and print what was checked. With --rigorous, "
+                                          "also certify a rational lower bound by exact arithmetic.")
+    p.add_argument("certificate", metavar="CERT.npz")
+    p.add_argument("--rigorous", action="store_true", help="certify an exact rational lower bound")
+    p.add_argument("--denominator", type=int, default=None, metavar="Q",
+                   help="denominator for rounding Γ (default: automatic, a power of two with Q·max|Γ| ≈ 2^28)")
+    p.add_argument("--safety", type=float, default=None, metavar="S",
+                   help="safety scaling of the proved constraint bounds (default 1e-6)")
+    p.add_argument("--method", choices=("auto", "ldl", "cholesky", "residual"), default="auto",
+                   help="positive-definiteness proofs: exact LDLᵀ, verified float Cholesky, exact residual of a float Cholesky, or auto (default)")
+    p.add_argument("--against", metavar="INSTANCE", default=None,
+                   help="also check that the certificate is for exactly this instance (.toml) or table file")
+    p.add_argument("--set", dest="params", action="append", default=[], metavar="NAME=VALUE",
+                   help="grid parameter of the --against instance (repeatable); without it every grid point "
+                        "is tried")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=run)
+
+
+def run(args) -> int:
+    """Handler of ``advbound verify``; returns the exit code."""
+    from advbound.evidence.certificate import load_certificate
+    from advbound.errors import AdvboundError
+    from advbound.evidence.rigorous import DEFAULT_SAFETY, verify_rigorous
+    from advbound.evidence.verify import verify_certificate
+
+    if args.denominator is not None and args.denominator < 1:
+        raise AdvboundError(f"--denominator must be a positive integer, got {args.denominator}")
+    safety = DEFAULT_SAFETY if args.safety is None else args.safety
+    if not safety > 0:
+        raise AdvboundError(f"--safety must be positive, got {safety}")
+    if args.params and not args.against:
+        raise AdvboundError("--set is only used with --against INSTANCE")
+    cert = load_certificate(args.certificate)
+    match = None
+    if args.against:
+        from advbound.evidence.export import match_instance
+        from advbound.functions.instance import parse_params
+        match = match_instance(cert, args.against, parse_params(args.params))
+        if not match.matched:
+            return _mismatch(args, match)
+    fl = verify_certificate(cert)
+    rig = None
+    if args.rigorous:
+        rig = verify_rigorous(cert, denominator=args.denominator, safety=safety, method=args.method)
+    verified = fl.passed and (rig is None or rig.verified)
+    if args.json:
+        out = {"certificate": str(args.certificate), "verified": verified,
+               "lower": rig.lower if rig is not None else fl.lower,
+               "float": fl.to_dict()}
+        if rig is not None:
+            out["lower_exact"] = rig.to_dict()["lower_exact"]
+            out["rigorous"] = rig.to_dict()
+        if match is not None:
+            out["against"] = match.to_dict()
+        print(json.dumps(out, indent=1))
+        return 0 if verified else 1
+    desc = cert.metadata.get("description") or "(no description)"
+    print(f"certificate {args.certificate}: {desc}; |D| = {len(cert.inputs)}, {len(cert.costs)} positions, "
+          f"bound {fl.bound}")
+    if match is not None:
+        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
+        print(f"against {match.label()}: same function ({spec})")
+    print("float check (advbound.quantities):")
+    for name, ok, det in fl.checks:
+        print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+    print(f"  ||Γ|| = {fl.gamma_norm:.12g}")
+    for j, (nj, c) in enumerate(zip(fl.position_norms, cert.costs)):
+        mark = "  *binding" if j in fl.binding else ""
+        print(f"  ||Γ∘Δ_{j + 1}|| = {nj:.12g}   (cost {c:g}){mark}")
+    print(f"  ratio (float lower bound) = {fl.lower:.12g}")
+    if fl.upper is not None:
+        print(f"  upper bound (repaired dual witness, float) = {fl.upper:.12g}")
+    if rig is not None:
+        print("rigorous check (exact rationals):")
+        print(f"  Γ rounded to denominator Q = {rig.denominator}; equal-output entries zeroed exactly "
+              f"(largest in file {rig.equal_output_mass:.3g})")
+        print(f"  Rayleigh quotient vᵀΓv/vᵀv = {float(rig.rayleigh):.12g} (exact rational, <= ||Γ_q||)")
+        print(f"  safety scaling s = {rig.safety:g}; common scale K = {float(rig.scale):.12g}")
+        for p in rig.positions:
+            print(f"  [{'ok' if p.proved else 'FAIL'}] position {p.position + 1}: ||Γ_q∘Δ|| = {p.float_norm:.12g}"
+                  f" < {float(p.bound):.12g} ({p.method}; {p.detail}; {p.seconds:.2f} s)")
+        for name, ok, det in rig.checks:
+            if name != "constraints":
+                print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+        if rig.lower_exact is not None:
+            print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
+            print(f"  lower (rounded down) = {rig.lower!r}")
+        print(f"  time {rig.seconds:.2f} s ({rig.method}, backend {rig.backend})")
+    print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
+    return 0 if verified else 1
+
+
+def _mismatch(args, match) -> int:
+    """Report a certificate whose function is not the instance's: a failed check, exit 1."""
+    if args.json:
+        print(json.dumps({"certificate": str(args.certificate), "verified": False, "lower": None,
+                          "against": match.to_dict()}, indent=1))
+        return 1
+    print(f"against {match.label()}: not this instance's function: {match.message}")
+    print("verdict: NOT VERIFIED")
+    return 1

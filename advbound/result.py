@@ -52,6 +52,10 @@ class SolveResult:
     certificate : Certificate or None
     verification : object or None
         The :class:`~advbound.evidence.verify.VerificationReport` behind ``lower`` and ``upper``.
+    method : str
+        The program that ran (``"dense"``, ``"rows"``, ...); empty when not known.
+    method_reason : str
+        Why that program ran (what ``method="auto"`` saw, or that it was asked for).
     """
 
     message: str
@@ -64,6 +68,8 @@ class SolveResult:
     solver_stats: SolverStats = dataclasses.field(default_factory=SolverStats)
     certificate: Any = None
     verification: Any = None
+    method: str = ""
+    method_reason: str = ""
 
     @property
     def success(self) -> bool:
@@ -100,6 +106,8 @@ class SolveResult:
             "relative_gap": num(self.relative_gap),
             "objective": num(self.objective),
             "domain_size": int(self.domain_size),
+            "method": self.method,
+            "method_reason": self.method_reason,
             "solver": {"name": st.name, "version": st.version, "time": float(st.time),
                        "iterations": None if st.iterations is None else int(st.iterations),
                        "tolerances": dict(st.tolerances), "options": dict(st.options)},

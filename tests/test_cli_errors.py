@@ -349,7 +349,7 @@ def test_solve_refused_before_building(or3, capsys, monkeypatch):
 
     monkeypatch.setattr(advbound.programs.sdp, "formulate", _no_build)
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "100")
-    code, out, lines = run(capsys, "solve", or3)
+    code, out, lines = run(capsys, "solve", or3, "--method", "dense")
     line = one_error(lines)
     assert code == 2 and "needs about" in line and "100 B is available" in line and "--allow-large" in line
     assert "--method factored" in line  # OR_3 has two output values
@@ -363,10 +363,10 @@ def test_solve_allow_large(or3, capsys, monkeypatch):
 
 
 def test_library_solve_refuses(monkeypatch):
-    """The library solve() refuses past the budget too (allow_large=False is the default)."""
+    """The library solve() refuses a dense program past the budget too (allow_large=False is the default)."""
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "100")
     with pytest.raises(TooLargeError, match="allow_large=True"):
-        advbound.programs.solve.solve(or_function(2))
+        advbound.programs.solve.solve(or_function(2), method="dense")
 
 
 def test_solve_estimate_grows_with_solver():

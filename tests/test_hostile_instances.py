@@ -235,7 +235,7 @@ class TestBudgetBoundsTheBuild:
 
     def test_memory_estimate_refused(self, monkeypatch):
         """A domain that fits max_inputs but not the available memory is refused with both figures."""
-        monkeypatch.setattr("advbound.functions.builders._available_memory", lambda: 1 << 20)
+        monkeypatch.setattr("advbound.functions.sizelimit._available_memory", lambda: 1 << 20)
         with pytest.raises(InvalidFunctionError, match=r"would have 20,000 inputs on 100 positions \(about 3\.13 MB\), "
                                                        r"more than the 1 MB of memory available"):
             check_domain_size(20000, 100)

@@ -18,6 +18,8 @@ TOOL = PACKAGE.parent / "tools" / "recheck_certificate.py"
 #: Modules every stage may import, and which import no stage themselves.
 VOCABULARY = ("errors", "status", "quantities", "result")
 STAGES = ("functions", "evidence", "programs", "studies", "cli")
+#: The longest a module (in lines) or a function (in lines, docstring included) may grow.
+MODULE_LINES, FUNCTION_LINES = 700, 150
 
 
 def _rank(dotted: str) -> int | None:
@@ -107,3 +109,12 @@ def test_recheck_tool_imports_neither_advbound_nor_cvxpy():
     """The standalone re-checker stands apart from the package and from every solver."""
     names = {t.split(".")[0] for t, _ in _imports(TOOL)}
     assert "advbound" not in names and "cvxpy" not in names
+@pytest.mark.parametrize("path,name", list(_modules()), ids=lambda v: str(v).rsplit("advbound/", 1)[-1])
+def test_modules_and_functions_fit_on_a_screen_or_two(path, name):
+    """Each module stays under MODULE_LINES lines and each function under FUNCTION_LINES."""
+    text = path.read_text()
+    assert text.count("\n") <= MODULE_LINES, f"{name} has {text.count(chr(10))} lines; split it by job"
+    for node in ast.walk(ast.parse(text)):
+        if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef):
+            length = node.end_lineno - node.lineno + 1
+            assert length <= FUNCTION_LINES, f"{name}.{node.name} has {length} lines; split it into named steps"

@@ -253,7 +253,7 @@ def test_loose_points_left_out_of_fits():
     """A point whose verified gap is wide (a loose lower bound) is not fitted; tight points are."""
     import math as _m
 
-    from advbound.studies.report import FIT_MAX_GAP, Series, _fit_points
+    from advbound.studies.report_series import FIT_MAX_GAP, Series, _fit_points
     T = (4.0, 8.0, 16.0, 32.0)
     lower = tuple(_m.sqrt(t) for t in T)
     upper = (lower[0], lower[1] * (1 + FIT_MAX_GAP / 10), lower[2] * 1.2, None)   # third is loose
@@ -271,7 +271,7 @@ def test_shipped_store_fit_and_report_read_only(tmp_path, monkeypatch, capsys):
     with mode=ro and leave the folder byte-for-byte unchanged (no -wal/-shm/-journal, same mtime)."""
     import stat
 
-    import advbound.studies.store as store_mod
+    import advbound.studies.store_file as store_mod
     from advbound.cli import main
     if not os.path.exists(SHIPPED):
         pytest.skip("reports/scaling_rows2/results.sqlite is not in this checkout")

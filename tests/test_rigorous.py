@@ -259,7 +259,7 @@ class TestMoreFormats:
 
 def test_residual_int64_matches_python_integers(monkeypatch):
     """The int64 evaluation of the exact residual decides like the Python-integer one (forced fallback)."""
-    import advbound.evidence.rigorous as rig
+    import advbound.evidence.exactlinalg as rig
     cert = random_cert(40, seed=8)
     want = verify_rigorous(cert, method="residual")
     calls = []

@@ -6,9 +6,11 @@ import numpy as np
 import pytest
 
 from advbound.functions.builders import position_search_composition
-from advbound.programs.rowsym import (RowFamily, check_dimensions, expand_gamma, family_of, formulate_rows,
-                                      gamma_on_orbits, partitions, position_search_family, reduced_lower_bound,
-                                      semistandard_tableaux, solve_reduced, solve_rows, standard_tableaux_count)
+from advbound.functions.rowfamily import RowFamily, family_of, position_search_family
+from advbound.functions.tableaux import partitions, semistandard_tableaux, standard_tableaux_count
+from advbound.evidence.orbitcheck import orbit_lower_bound, orbit_upper_bound
+from advbound.functions.rowbasis import check_dimensions, expand_gamma
+from advbound.programs.rowsym import formulate_rows, gamma_on_orbits, solve_reduced, solve_rows
 from advbound.programs.solve import solve
 from advbound.evidence.verify import verify_certificate
 
@@ -21,10 +23,10 @@ def _boolean_family(n, rule):
 
 def _reduced_value(fam, bound="general"):
     prog = formulate_rows(fam, bound)
-    x, word, *_ = solve_reduced(prog)
-    assert word in ("optimal", "optimal_inaccurate")
-    g, rho = gamma_on_orbits(prog, x)
-    return reduced_lower_bound(prog, g, rho)["lower"], prog, g
+    pt = solve_reduced(prog)
+    assert pt.status in ("optimal", "optimal_inaccurate")
+    g, rho = gamma_on_orbits(prog, pt.x)
+    return orbit_lower_bound(prog.basis, g, rho)["lower"], prog, g
 
 
 @pytest.mark.parametrize("mu", [(1, 1, 1), (2, 1), (2, 2, 1), (3, 1, 1, 1), (2, 2, 2)])
@@ -85,7 +87,7 @@ def test_parity_is_n():
 
 @pytest.mark.parametrize("n,T,max_ones,outer", [
     (2, 5, None, "or"), (3, 6, None, "or"), (3, 6, 1, "or"), (3, 6, None, "and"),
-    (3, 5, None, "threshold:2"), (4, 6, None, "or")])
+    (3, 5, None, "threshold:2"), (4, 5, None, "or"), (4, 6, 1, "or")])
 def test_reduced_equals_dense(n, T, max_ones, outer):
     """The reduced optimum equals the dense program's verified value (dense CLARABEL, computed in the test)."""
     fam = position_search_family(outer, n, T, max_ones)
@@ -93,7 +95,7 @@ def test_reduced_equals_dense(n, T, max_ones, outer):
     f, G = expand_gamma(prog, g)
     dense = solve(f, solver="CLARABEL")
     assert dense.lower is not None and dense.upper is not None
-    assert dense.lower - 1e-6 <= low <= dense.upper + 1e-6
+    assert dense.lower * (1 - 5e-6) <= low <= dense.upper * (1 + 1e-9)
     assert low == pytest.approx(dense.upper, rel=1e-5)
 
 
@@ -141,6 +143,47 @@ def test_solve_method_rows():
     r = solve(f, method="rows")
     assert r.lower == pytest.approx(2.858167, abs=2e-6)   # 3 rows, T = 7: README table / dense program
     assert r.certificate is not None and r.verification.passed
+    assert r.status == "optimal", r.message
+    assert r.upper == pytest.approx(2.858167, abs=2e-6) and r.upper >= r.lower
+
+
+@pytest.mark.parametrize("n,T,max_ones,outer,bound", [
+    (3, 6, None, "or", "general"), (3, 6, None, "and", "general"), (3, 6, 1, "or", "general"), (3, 5, None, "threshold:2", "general"),
+    (3, 5, None, "or", "positive")])
+def test_reduced_dual_bound_matches_dense(n, T, max_ones, outer, bound):
+    """The weak-duality bound from the reduced dual equals the dense program's verified upper bound."""
+    fam = position_search_family(outer, n, T, max_ones)
+    prog = formulate_rows(fam, bound)
+    pt = solve_reduced(prog)
+    up = orbit_upper_bound(prog.basis, prog.bound, pt.duals)
+    f, _ = expand_gamma(prog, gamma_on_orbits(prog, pt.x)[0])
+    dense = solve(f, bound, solver="CLARABEL")
+    assert dense.upper is not None
+    assert up["upper"] == pytest.approx(dense.upper, rel=1e-5)
+    assert up["upper"] >= dense.lower - 1e-7
+
+
+def test_any_psd_dual_gives_a_valid_upper_bound():
+    """Weak duality: random PSD matrices, zero matrices and a scaled optimum all bound the optimum from above."""
+    fam = position_search_family("or", 3, 6)
+    prog = formulate_rows(fam)
+    pt = solve_reduced(prog)
+    optimum = orbit_upper_bound(prog.basis, prog.bound, pt.duals)["upper"]
+    rng = np.random.default_rng(7)
+    trials = [[np.zeros_like(Z) for Z in pt.duals], [0.5 * Z for Z in pt.duals], [2.0 * Z for Z in pt.duals]]
+    for _ in range(5):
+        trials.append([(A := rng.standard_normal(Z.shape)) @ A.T for Z in pt.duals])
+    for duals in trials:
+        assert orbit_upper_bound(prog.basis, prog.bound, duals)["upper"] >= optimum * (1 - 1e-6)
+
+
+def test_dual_bound_refuses_non_finite_matrices():
+    """A dual matrix with a NaN gives no upper bound, never a number."""
+    prog = formulate_rows(position_search_family("or", 2, 4))
+    pt = solve_reduced(prog)
+    duals = [Z.copy() for Z in pt.duals]
+    duals[0][0, 0] = np.nan
+    assert orbit_upper_bound(prog.basis, prog.bound, duals)["upper"] is None
 
 
 def test_solve_rows_refuses_non_row_function():

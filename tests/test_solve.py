@@ -70,7 +70,7 @@ class TestKnownValues:
     def test_scs(self, name):
         """SCS with its default settings agrees to 1e-4 relative (sources in KNOWN)."""
         known = next(k for k in KNOWN if k.name == name)
-        r = solve(known.function, bound=known.bound)
+        r = solve(known.function, bound=known.bound, method="dense", solver="SCS")
         _assert_verified(r)
         assert r.solver_stats.name == "SCS"
         assert r.lower == pytest.approx(known.expected, rel=1e-4)

@@ -179,7 +179,7 @@ def test_legacy_wal_store_with_pending_log(tmp_path, monkeypatch):
 def test_readonly_folder_falls_back_to_immutable(tmp_path, monkeypatch):
     """When the folder is read-only and sqlite cannot take its shared lock there (as on some read-only
     media), the open falls back to immutable=1 and still reads the rows."""
-    import advbound.studies.store as store_mod
+    import advbound.studies.store_file as store_mod
     p = tmp_path / "s.sqlite"
     with Store(p) as st:
         st.put(_row("k1"))

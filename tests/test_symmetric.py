@@ -215,7 +215,7 @@ class TestChordal:
     def test_psd_completion(self):
         """Completing a PSD matrix known only on the cliques of its pattern gives a PSD matrix that
         agrees on those entries (the completion theorem of 1984 cited in the code)."""
-        from advbound.programs.symmetric import _psd_completion
+        from advbound.programs.symmetric_blocks import _psd_completion
         rng = np.random.default_rng(8)
         p = rng.random((30, 30)) < 0.1
         p = p | p.T

@@ -47,6 +47,7 @@ from fractions import Fraction
 import numpy as np
 
 FORMAT = "advbound-certificate/1"
+ORBIT_FORMAT = "advbound-orbit-certificate/1"
 BITS, VBITS, KBITS = 28, 26, 30          # denominator bits, eigenvector bits, bits of K
 U = Fraction(1, 2**53)                    # unit roundoff of IEEE double
 EPS = float(np.finfo(np.float64).eps)
@@ -71,6 +72,10 @@ UPPER_RTOL = 1e-6     # L <= upper (1+UPPER_RTOL); claimed_upper >= upper (1-UPP
 
 NAMES = {"format", "alphabet", "inputs", "outputs", "costs", "metadata", "gamma", "gamma_row",
          "gamma_col", "gamma_val", "dual_t", "dual_plus", "dual_minus"}
+ORBIT_NAMES = {"format", "alphabet", "letters", "contents", "outputs", "costs", "pair_keys", "gamma", "rho",
+               "metadata", "dual_sizes", "dual_values"}
+ORBIT_REQUIRED = ("format", "alphabet", "letters", "contents", "outputs", "costs", "pair_keys", "gamma", "rho",
+                  "metadata")
 REQUIRED = ("format", "alphabet", "inputs", "outputs", "costs", "metadata")
 COO = ("gamma_row", "gamma_col", "gamma_val")
 
@@ -133,8 +138,8 @@ def inspect_archive(path):
                 name = info.filename[:-4]
                 if name in heads:
                     raise Refused(f"array {name!r} appears twice")
-                if name not in NAMES:
-                    raise Refused(f"unknown array {name!r} (the format has {', '.join(sorted(NAMES))})")
+                if name not in NAMES | ORBIT_NAMES:
+                    raise Refused(f"unknown array {name!r} (the formats have {', '.join(sorted(NAMES | ORBIT_NAMES))})")
                 with zf.open(info) as fh:
                     dtype, shape = read_npy_header(fh, name)
                 nbytes = math.prod(shape) * dtype.itemsize
@@ -373,6 +378,11 @@ def check_dual_arrays(a, n, size):
 def accept(path):
     """Apply the whole acceptance rule; return the certificate's parts or raise Refused."""
     heads = inspect_archive(path)
+    if "letters" in heads or "contents" in heads or "pair_keys" in heads:
+        return accept_orbits(path, heads)
+    extra = sorted(set(heads) - NAMES)
+    if extra:
+        raise Refused(f"unknown array {extra[0]!r} for a dense certificate")
     check_structure(heads)
     a = load_arrays(path, heads)
     inputs, outputs, symbols, out, costs = check_function(a)
@@ -382,6 +392,167 @@ def accept(path):
     dual = check_dual_arrays(a, len(costs), len(inputs))
     return dict(inputs=inputs, outputs=outputs, symbols=symbols, out=out, costs=costs, meta=meta,
                 bound=bound, gamma=g, form=form, dual=dual)
+
+
+# =============================================================================================
+# Orbit certificates: their own rule, then expansion to the dense form
+# =============================================================================================
+def multiset_count(row):
+    """Number of distinct arrangements of the tuple ``row``."""
+    k = math.factorial(len(row))
+    for v in set(row):
+        k //= math.factorial(row.count(v))
+    return k
+
+
+def arrangements(row):
+    """The distinct arrangements of ``row`` (a sorted tuple), in lexicographic order."""
+    row = sorted(row)
+    out = [tuple(row)]
+    while True:   # next permutation
+        i = len(row) - 2
+        while i >= 0 and row[i] >= row[i + 1]:
+            i -= 1
+        if i < 0:
+            return out
+        j = len(row) - 1
+        while row[j] <= row[i]:
+            j -= 1
+        row[i], row[j] = row[j], row[i]
+        row[i + 1:] = reversed(row[i + 1:])
+        out.append(tuple(row))
+
+
+def accept_orbits(path, heads):
+    """The orbit format (docs/evidence.md, "Orbit certificates"), expanded to the dense parts.
+
+    The file must describe a function of interchangeable rows: distinct letters (row inputs) of
+    one length over the alphabet, distinct sorted contents over them, one output per content
+    (every arrangement of a content is an input with that output), one cost per row position;
+    and Γ: one finite value per distinct, sorted pair orbit whose first inputs form a content with
+    a smaller output label than the content its second inputs form.  The test vector and the
+    dual matrices are not needed here: this tool proves its own lower bound from the expanded Γ
+    and does not check the reduced dual.
+    """
+    extra = sorted(set(heads) - ORBIT_NAMES)
+    if extra:
+        raise Refused(f"unknown array {extra[0]!r} for an orbit certificate")
+    missing = [n for n in ORBIT_REQUIRED if n not in heads]
+    if missing:
+        raise Refused(f"missing array(s) {', '.join(missing)}")
+    a = load_arrays(path, heads)
+    fmt = a["format"]
+    if fmt.dtype.kind != "U" or fmt.ndim != 0 or str(fmt) != ORBIT_FORMAT:
+        raise Refused(f"format is {str(fmt)[:60]!r}, expected {ORBIT_FORMAT!r}")
+    alph = a["alphabet"]
+    need_kind(alph, "alphabet", "U", "strings", ndim=1)
+    alphabet = [str(s) for s in alph]
+    if not alphabet or any(len(s) != 1 for s in alphabet) or len(set(alphabet)) != len(alphabet):
+        raise Refused("alphabet must be distinct single characters, at least one")
+    lt = a["letters"]
+    need_kind(lt, "letters", "U", "strings", ndim=1)
+    letters = [str(s) for s in lt]
+    if not letters:
+        raise Refused("letters is empty")
+    width = len(letters[0])
+    for i, s in enumerate(letters):
+        if len(s) != width or width == 0:
+            raise Refused(f"letters[{i}] = {s[:40]!r} has length {len(s)}, letters[0] has length {width}")
+        if any(ch not in alphabet for ch in s):
+            raise Refused(f"letters[{i}] = {s[:40]!r} has a symbol outside the alphabet")
+    if len(set(letters)) != len(letters):
+        raise Refused("letters must be distinct")
+    ct = a["contents"]
+    need_kind(ct, "contents", "iu", "integers", ndim=2)
+    contents = [tuple(int(v) for v in row) for row in ct]
+    if not contents or len(contents[0]) < 2:
+        raise Refused(f"contents has shape {ct.shape}: at least one content of at least 2 rows")
+    rows = len(contents[0])
+    for i, c in enumerate(contents):
+        if any(v < 0 or v >= len(letters) for v in c):
+            raise Refused(f"contents[{i}] names a letter outside 0..{len(letters) - 1}")
+        if list(c) != sorted(c):
+            raise Refused(f"contents[{i}] is not sorted")
+    if len(set(contents)) != len(contents):
+        raise Refused("contents must be distinct")
+    op = a["outputs"]
+    need_kind(op, "outputs", "U", "strings", ndim=1)
+    outputs = [str(s) for s in op]
+    if len(outputs) != len(contents):
+        raise Refused(f"{len(outputs)} outputs for {len(contents)} contents (one output per content)")
+    if len(set(outputs)) < 2:
+        raise Refused("every content has the same output (a constant function has no adversary bound)")
+    size = sum(multiset_count(c) for c in contents)
+    if size > MAX_INPUTS:
+        raise Refused(f"{size} inputs: the dense check handles at most {MAX_INPUTS}")
+    c = a["costs"]
+    need_kind(c, "costs", "f", "floats", ndim=1)
+    if c.shape[0] != width:
+        raise Refused(f"{c.shape[0]} costs for letters of length {width} (one cost per row position)")
+    row_costs = c.astype(np.float64)
+    for j, v in enumerate(row_costs):
+        if not (math.isfinite(v) and v > 0):
+            raise Refused(f"costs[{j}] = {float(v)!r} (costs must be finite and > 0)")
+    meta, bound = check_metadata(a)
+    pk = a["pair_keys"]
+    need_kind(pk, "pair_keys", "iu", "integers", ndim=3)
+    if pk.shape[1:] != (rows, 2):
+        raise Refused(f"pair_keys has shape {pk.shape}, expected (K, {rows}, 2)")
+    gv = a["gamma"]
+    need_kind(gv, "gamma", "f", "floats", ndim=1)
+    if gv.shape[0] != pk.shape[0]:
+        raise Refused(f"{gv.shape[0]} gamma values for {pk.shape[0]} pair orbits")
+    gv = gv.astype(np.float64)
+    index = {cc: i for i, cc in enumerate(contents)}
+    rank = {y: k for k, y in enumerate(sorted(set(outputs)))}
+    value = {}
+    for i, key in enumerate(pk):
+        pairs = [(int(x), int(z)) for x, z in key]
+        if pairs != sorted(pairs) or any(not (0 <= v < len(letters)) for pr in pairs for v in pr):
+            raise Refused(f"pair_keys[{i}] is not a sorted list of letter pairs")
+        cx, cz = index.get(tuple(sorted(x for x, _ in pairs))), index.get(tuple(sorted(z for _, z in pairs)))
+        if cx is None or cz is None:
+            raise Refused(f"pair_keys[{i}]: its inputs do not form contents of the certificate")
+        if rank[outputs[cx]] >= rank[outputs[cz]]:
+            raise Refused(f"pair_keys[{i}] does not go from a smaller to a larger output label")
+        if tuple(pairs) in value:
+            raise Refused(f"pair_keys[{i}] repeats an earlier pair orbit")
+        if not math.isfinite(gv[i]):
+            raise Refused(f"gamma[{i}] = {float(gv[i])!r} (Γ must be finite)")
+        value[tuple(pairs)] = float(gv[i])
+    rv = a["rho"]
+    need_kind(rv, "rho", "f", "floats", ndim=1)
+    if rv.shape[0] != len(contents) or not np.isfinite(rv).all() or (rv < 0).any() or not (rv > 0).any():
+        raise Refused(f"rho must hold {len(contents)} finite values >= 0, not all 0 (one per content)")
+    if ("dual_sizes" in a) != ("dual_values" in a):
+        raise Refused("dual_sizes and dual_values come together")
+    if "dual_sizes" in a:
+        ds, dv = a["dual_sizes"], a["dual_values"]
+        need_kind(ds, "dual_sizes", "iu", "integers", ndim=1)
+        need_kind(dv, "dual_values", "f", "floats", ndim=1)
+        if (ds < 1).any() or sum(int(s) ** 2 for s in ds) != dv.shape[0] or not np.isfinite(dv).all():
+            raise Refused("dual_sizes and dual_values do not describe finite square matrices")
+    words, outs = [], []
+    for cc, y in zip(contents, outputs):
+        for w in arrangements(cc):
+            words.append(w)
+            outs.append(y)
+    order = sorted(range(size), key=lambda i: "".join(letters[v] for v in words[i]))
+    words = [words[i] for i in order]
+    outputs_d = [outs[i] for i in order]
+    inputs = ["".join(letters[v] for v in w) for w in words]
+    g = np.zeros((size, size))
+    for i in range(size):
+        for j in range(size):
+            if rank[outputs_d[i]] < rank[outputs_d[j]]:
+                v = value.get(tuple(sorted(zip(words[i], words[j]))), 0.0)
+                g[i, j] = g[j, i] = v
+    n = rows * width
+    symbols = np.array(inputs, dtype=f"U{n}").view(np.uint32).reshape(size, n)
+    out = np.array([rank[y] for y in outputs_d], dtype=np.int64)
+    check_gamma(g, inputs, outputs_d, out, bound)
+    return dict(inputs=inputs, outputs=outputs_d, symbols=symbols, out=out, costs=np.tile(row_costs, rows),
+                meta=meta, bound=bound, gamma=g, form="orbits", dual=None, orbit=True)
 
 
 # =============================================================================================
@@ -582,7 +753,9 @@ def recheck(path, denominator=None, safety=1e-6, method="auto"):
     n = len(cert["costs"])
     checks = [("well_formed", True, f"acceptance rule holds: |D| = {size}, {n} positions, "
                f"{len(set(cert['outputs']))} outputs, bound {cert['bound']}, gamma {cert['form']}"
-               + (", dual witness stored" if cert["dual"] else ""))]
+               + (", dual witness stored" if cert["dual"] else "")
+               + ("; an orbit certificate, expanded here (its reduced dual is not checked by this tool)"
+                  if cert.get("orbit") else ""))]
     proved, lower, detail, q = lower_bound(cert, denominator, safety, method)
     checks.append(("constraints", proved, detail))
     meta = cert["meta"]

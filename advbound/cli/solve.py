@@ -31,12 +31,15 @@ def register(subparsers) -> None:
                    help="set an instance parameter (repeatable), e.g. --set T=7")
     p.add_argument("--bound", choices=("general", "positive"), default="general",
                    help="general = ADV± (default), positive = ADV")
-    p.add_argument("--solver", default="SCS", metavar="NAME", help="SCS (default) or CLARABEL")
+    p.add_argument("--solver", default=None, metavar="NAME",
+                   help="SCS or CLARABEL (default: the one the method picks; SCS for --method dense or symmetric)")
     p.add_argument("--tol", type=float, default=None, metavar="X",
-                   help="solver tolerance (default 1e-7; for --method factored the target relative gap, default 1e-4)")
+                   help="solver tolerance (default 1e-7, 1e-8 for the rows program; for --method factored the "
+                        "target relative gap, default 1e-4)")
     p.add_argument("--max-iters", type=int, default=None, metavar="N", help="solver iteration limit")
-    p.add_argument("--method", default="dense", metavar="NAME",
-                   help="dense (default), symmetric or factored")
+    p.add_argument("--method", default="auto", metavar="NAME",
+                   help="auto (default: rows when rows are interchangeable, else dense if it fits in memory, "
+                        "else factored for two outputs), dense, symmetric, factored or rows")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     p.add_argument("--save-certificate", metavar="PATH", default=None,
                    help="write the certificate (.npz) for later re-checking")
@@ -47,21 +50,15 @@ def register(subparsers) -> None:
 
 
 def _load(args):
-    try:
-        from advbound.functions.instance import load_function, parse_params
-    except ModuleNotFoundError:  # pragma: no cover - only before the instance module exists
-        from advbound.errors import InvalidInstanceError
-        from advbound.functions.tablefile import read_table
-        if args.params or str(args.file).endswith(".toml"):
-            raise InvalidInstanceError("instance files are not supported in this installation; use a table file")
-        return read_table(args.file), {}
+    from advbound.functions.instance import load_function, parse_params
+
     params = parse_params(args.params) if args.params else None
     return load_function(args.file, params=params), (params or {})
 
 
 def run(args) -> int:
     """Handler of ``advbound solve``; returns the exit code."""
-    from advbound.evidence.certificate import save_certificate
+    from advbound.evidence.orbitcert import save_any_certificate
     from advbound.cli.paths import check_output_path
     from advbound.errors import InvalidFunctionError
     from advbound.programs.solve import solve
@@ -77,12 +74,12 @@ def run(args) -> int:
                 method=args.method, allow_large=args.allow_large)
     saved = None
     if args.save_certificate and res.certificate is not None:
-        save_certificate(res.certificate, args.save_certificate)
+        save_any_certificate(res.certificate, args.save_certificate)
         saved = args.save_certificate
 
     if args.json:
         d = res.to_dict()
-        d.update(file=str(args.file), params={k: v for k, v in params.items()}, method=args.method,
+        d.update(file=str(args.file), params={k: v for k, v in params.items()}, requested_method=args.method,
                  function=f.description, positions=f.n, outputs=len(f.labels),
                  certificate=saved)
         if res.verification is not None:
@@ -110,13 +107,14 @@ def _summary(f, res, args, saved) -> str:
         f"domain    {f.size} inputs, {f.n} positions, {len(f.labels)} output values",
         f"bound     {_BOUND_NAMES.get(res.bound, res.bound)}",
         f"lower     {_fmt(res.lower)}   (recomputed from the adversary matrix)",
-        f"upper     {_fmt(res.upper)}   (repaired dual witness)",
+        f"upper     {_fmt(res.upper)}   (verified dual bound)",
     ]
     if res.gap is not None:
         lines.append(f"gap       {res.gap:.3g}   (relative {res.relative_gap:.3g})")
     else:
         lines.append("gap       -")
     lines.append(f"status    {res.status}: {res.message}")
+    lines.append(f"program   {res.method or args.method}: {res.method_reason or 'asked for'}")
     it = "" if st.iterations is None else f", {st.iterations} iterations"
     lines.append(f"solver    {st.name} {st.version}, {st.time:.2f} s{it}")
     if saved:

@@ -19,6 +19,8 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
+
 __all__ = ["register", "run"]
 
 
@@ -47,8 +49,8 @@ def register(subparsers) -> None:
 
 def run(args) -> int:
     """Handler of ``advbound verify``; returns the exit code."""
-    from advbound.evidence.certificate import load_certificate
     from advbound.errors import AdvboundError
+    from advbound.evidence.orbitcert import OrbitCertificate, load_any_certificate
     from advbound.evidence.rigorous import DEFAULT_SAFETY, verify_rigorous
     from advbound.evidence.verify import verify_certificate
 
@@ -59,14 +61,17 @@ def run(args) -> int:
         raise AdvboundError(f"--safety must be positive, got {safety}")
     if args.params and not args.against:
         raise AdvboundError("--set is only used with --against INSTANCE")
-    cert = load_certificate(args.certificate)
+    cert = load_any_certificate(args.certificate)
+    orbit = isinstance(cert, OrbitCertificate)
     match = None
     if args.against:
         from advbound.evidence.export import match_instance
         from advbound.functions.instance import parse_params
-        match = match_instance(cert, args.against, parse_params(args.params))
+        match = match_instance(cert.function_view() if orbit else cert, args.against, parse_params(args.params))
         if not match.matched:
             return _mismatch(args, match)
+    if orbit:
+        return _run_orbit(args, cert, match, safety)
     fl = verify_certificate(cert)
     rig = None
     if args.rigorous:
@@ -115,6 +120,65 @@ def run(args) -> int:
             print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
             print(f"  lower (rounded down) = {rig.lower!r}")
         print(f"  time {rig.seconds:.2f} s ({rig.method}, backend {rig.backend})")
+    print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
+    return 0 if verified else 1
+
+
+def _run_orbit(args, cert, match, safety) -> int:
+    """Verify an orbit certificate in the reduced basis (and, with --rigorous, its expanded Γ exactly)."""
+    from advbound.errors import AdvboundError
+    from advbound.evidence.orbitcheck import DENSE_CHECK_LIMIT, verify_orbit_certificate
+
+    rep = verify_orbit_certificate(cert)
+    rig = None
+    if args.rigorous:
+        if cert.size > DENSE_CHECK_LIMIT:
+            raise AdvboundError(f"--rigorous on an orbit certificate expands Γ to |D| x |D|; this one has "
+                                f"{cert.size} inputs (at most {DENSE_CHECK_LIMIT})")
+        from advbound.evidence.certificate import Certificate
+        from advbound.evidence.rigorous import verify_rigorous
+        from advbound.evidence.orbitcheck import expanded_gamma
+
+        f, G = expanded_gamma(cert)
+        dense = Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G,
+                            metadata={"bound": cert.bound, "claimed_lower": cert.metadata.get("claimed_lower")})
+        rig = verify_rigorous(dense, denominator=args.denominator, safety=safety, method=args.method)
+    verified = rep.passed and (rig is None or rig.verified)
+    if args.json:
+        out = {"certificate": str(args.certificate), "kind": "orbits", "verified": verified,
+               "lower": rig.lower if rig is not None else rep.lower, "upper": rep.upper,
+               "checks": [[n, bool(ok), d] for n, ok, d in rep.checks]}
+        if rig is not None:
+            out["lower_exact"] = rig.to_dict()["lower_exact"]
+            out["rigorous"] = rig.to_dict()
+        if match is not None:
+            out["against"] = match.to_dict()
+        print(json.dumps(out, indent=1))
+        return 0 if verified else 1
+    desc = cert.metadata.get("description") or "(no description)"
+    n = np.asarray(cert.contents).shape[1]
+    print(f"orbit certificate {args.certificate}: {desc}; |D| = {cert.size} in {len(cert.contents)} orbits, "
+          f"{n} rows of {len(cert.costs)} positions, {len(cert.gamma)} pair orbits, bound {rep.bound}")
+    if match is not None:
+        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
+        print(f"against {match.label()}: same function ({spec})")
+    print("reduced-basis check (advbound.evidence.orbitcheck):")
+    for name, ok, det in rep.checks:
+        print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+    print(f"  ||Γ|| >= {rep.gamma_lower:.12g}   (Rayleigh quotient of the stored test vector)")
+    for j, nj in enumerate(rep.position_norms):
+        mark = "  *binding" if j in rep.binding else ""
+        print(f"  ||Γ∘Δ_(row, {j + 1})|| = {nj:.12g}   (cost {cert.costs[j]:g}){mark}")
+    print(f"  ratio (float lower bound) = {rep.lower:.12g}")
+    if rep.upper is not None:
+        print(f"  upper bound (weak duality from the stored reduced dual, float) = {rep.upper:.12g}")
+    if rig is not None:
+        print("rigorous check of the expanded Γ (exact rationals):")
+        for name, ok, det in rig.checks:
+            print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+        if rig.lower_exact is not None:
+            print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
+            print(f"  lower (rounded down) = {rig.lower!r}")
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
     return 0 if verified else 1
 

@@ -1,11 +1,15 @@
 """Stage 2, the evidence: certificates and everything that checks them, independently of any solver.
 
 ====================  =========================================================
-:mod:`.certificate`   the :class:`Certificate` value, its file format and acceptance rule
+:mod:`.certificate`   the dense :class:`Certificate`, its file format and acceptance rule
 :mod:`.verify`        floating-point verification of both bounds
 :mod:`.rigorous`      exact-arithmetic verification of the lower bound
+:mod:`.exactlinalg`   exact Rayleigh quotients and proofs of positive definiteness
+:mod:`.orbitcert`     orbit certificates of interchangeable rows: value, file, acceptance rule
+:mod:`.orbitcheck`    bounds of an orbit certificate in the reduced basis
 :mod:`.iterative`     matrix-free norm bounds for large adversary matrices
-:mod:`.usergamma`     a researcher's own adversary matrix: read, evaluate, improve
+:mod:`.gammainput`    reading a researcher's own Γ (callable or entries file)
+:mod:`.usergamma`     evaluating and improving it
 :mod:`.export`        LaTeX evidence for a proof draft, from certificate files
 ====================  =========================================================
 

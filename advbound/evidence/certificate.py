@@ -477,8 +477,12 @@ def _gib(nbytes: int) -> str:
     return f"{nbytes / 2**30:.3g} GiB" if nbytes >= 2**30 else f"{nbytes / 2**20:.3g} MiB"
 
 
-def _read_archive(path, where: str) -> dict:
-    """The arrays of the ``.npz`` at ``path``, after checking the archive and every array header."""
+def _read_archive(path, where: str, required=_REQUIRED, optional=_OPTIONAL) -> dict:
+    """The arrays of the ``.npz`` at ``path``, after checking the archive and every array header.
+
+    ``required`` and ``optional`` are the array names a file of this kind may hold (the dense
+    certificate's by default); any other member is refused.
+    """
     try:
         st = os.stat(path)
     except FileNotFoundError:
@@ -501,7 +505,7 @@ def _read_archive(path, where: str) -> dict:
                                        "another kind of file, or a truncated one)")
             fh.seek(0)
             with zipfile.ZipFile(fh) as zf:
-                return _read_members(zf, where)
+                return _read_members(zf, where, required, optional)
     except CertificateError:
         raise
     except MemoryError:
@@ -512,9 +516,9 @@ def _read_archive(path, where: str) -> dict:
         raise CertificateError(f"{where}: damaged or malformed archive ({msg})") from None
 
 
-def _read_members(zf: zipfile.ZipFile, where: str) -> dict:
+def _read_members(zf: zipfile.ZipFile, where: str, required, optional) -> dict:
     infos = zf.infolist()
-    known = _REQUIRED + _OPTIONAL
+    known = tuple(required) + tuple(optional)
     if len(infos) > len(known):
         raise CertificateError(f"{where}: the archive has {len(infos)} members; a certificate has at most "
                                f"{len(known)} arrays")
@@ -530,7 +534,7 @@ def _read_members(zf: zipfile.ZipFile, where: str) -> dict:
         if key in members:
             raise CertificateError(f"{where}: array {_show(key)} appears twice in the archive")
         members[key] = info
-    missing = [k for k in _REQUIRED if k not in members]
+    missing = [k for k in required if k not in members]
     if missing:
         raise CertificateError(f"{where}: missing array(s) {', '.join(missing)}")
     total = 0

@@ -31,8 +31,11 @@ import dataclasses
 import hashlib
 import os
 
-from advbound.evidence.certificate import load_certificate
-from advbound.errors import InvalidInstanceError
+import numpy as np
+
+from advbound.evidence.certificate import Certificate
+from advbound.evidence.orbitcert import load_any_certificate
+from advbound.errors import CertificateError, InvalidInstanceError
 
 __all__ = ["ExportRow", "InstanceMatch", "export_latex", "export_rows", "render_latex", "match_instance",
            "macro_suffix", "latex_escape", "sha256_file"]
@@ -227,7 +230,7 @@ def export_rows(paths, *, check: bool = True, digits: int = 4, against=None, par
     from advbound.evidence.rigorous import floor_decimal, verify_rigorous
     from advbound.evidence.verify import verify_certificate
 
-    certs = [(path, load_certificate(path)) for path in paths]
+    certs = [(path, _dense(path, load_any_certificate(path))) for path in paths]
     rows = []
     for path, cert in certs:
         desc = str(cert.metadata.get("description") or os.path.basename(str(path)))
@@ -264,6 +267,21 @@ def _latex_number(x: float) -> str:
     m, e = f"{x:.3e}".split("e")
     m = m.rstrip("0").rstrip(".")
     return f"10^{{{int(e)}}}" if m == "1" else f"{m}\\times 10^{{{int(e)}}}"
+
+
+def _dense(path, cert):
+    """A dense certificate as it is; an orbit certificate expanded to its full Γ (its dual is not carried)."""
+    from advbound.evidence.orbitcert import OrbitCertificate
+    from advbound.evidence.orbitcheck import DENSE_CHECK_LIMIT, expanded_gamma
+
+    if not isinstance(cert, OrbitCertificate):
+        return cert
+    if cert.size > DENSE_CHECK_LIMIT:
+        raise CertificateError(f"{path}: an orbit certificate of {cert.size} inputs; export expands Γ to "
+                               f"|D| x |D| and takes at most {DENSE_CHECK_LIMIT} (use advbound verify)")
+    f, G = expanded_gamma(cert)
+    keep = {k: cert.metadata[k] for k in ("description", "bound", "claimed_lower", "spec_key") if k in cert.metadata}
+    return Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G, metadata=keep)
 
 
 def export_latex(paths, *, check: bool = True, digits: int = 4, against=None, params: dict | None = None,

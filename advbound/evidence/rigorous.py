@@ -84,6 +84,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from advbound.evidence.certificate import BOUNDS, check_acceptance, cleaned
+from advbound.evidence.exactlinalg import (cholesky_shift, exact_rayleigh, flint_available, prove_pd_cholesky,
+                                           prove_pd_ldl, prove_pd_residual)
 from advbound.errors import CertificateError
 
 __all__ = [
@@ -122,17 +124,6 @@ DEFAULT_SAFETY = 1e-6
 LDL_AUTO_LIMIT = 120
 #: Largest certificate (inputs) handled; everything is dense.
 MAX_DENSE = 4000
-
-_U = Fraction(1, 2**53)  # unit roundoff of IEEE double, round to nearest
-
-
-def flint_available() -> bool:
-    """True when python-flint can be imported (it speeds up exact LDLᵀ)."""
-    try:
-        import flint  # noqa: F401
-    except ImportError:
-        return False
-    return True
 
 
 @dataclasses.dataclass(frozen=True)
@@ -307,272 +298,6 @@ def principal_vector(n_int: np.ndarray, q: int, bits: int = VECTOR_BITS) -> np.n
     return np.rint(vec * (2.0**bits / np.max(np.abs(vec)))).astype(np.int64)
 
 
-def exact_rayleigh(n_int: np.ndarray, v: np.ndarray) -> Fraction:
-    """``|vᵀNv| / vᵀv`` exactly (Python integers throughout).
-
-    >>> exact_rayleigh(np.array([[0, 1], [1, 0]]), np.array([1, 1]))
-    Fraction(1, 1)
-    """
-    vo = [int(a) for a in v]
-    num = 0
-    nv = _exact_matvec(n_int, np.asarray(v, dtype=np.int64))
-    for a, b in zip(vo, nv):
-        num += a * b
-    den = sum(a * a for a in vo)
-    return Fraction(abs(num), den) if den else Fraction(0)
-
-
-def _exact_matvec(n_int: np.ndarray, v: np.ndarray) -> list[int]:
-    """``N v`` as Python ints: int64 arithmetic split into 16-bit limbs so no partial sum overflows."""
-    size = n_int.shape[0]
-    amax = int(np.max(np.abs(n_int), initial=0))
-    limb = 16
-    if amax * (2**limb) * max(size, 1) < 2**62:
-        sign = np.sign(v)
-        a = np.abs(v)
-        out = [0] * size
-        shift = 0
-        while a.any():
-            part = (a & (2**limb - 1)) * sign
-            r = n_int @ part
-            out = [o + (int(x) << shift) for o, x in zip(out, r)]
-            a = a >> limb
-            shift += limb
-        return out
-    obj = n_int.astype(object)
-    return [int(x) for x in obj.dot(v.astype(object))]
-
-
-# ---------------------------------------------------------------------------------------------
-# Positive-definiteness proofs
-# ---------------------------------------------------------------------------------------------
-def prove_pd_ldl(a_int, use_flint: bool | None = None) -> tuple[bool, str, str]:
-    """Decide exactly whether the symmetric integer matrix ``a_int`` is positive definite.
-
-    Fraction-free LDLᵀ (Bareiss): after step ``k`` the pivot equals the leading principal
-    minor of order ``k+1``; all pivots positive iff positive definite (Sylvester's criterion).
-
-    Returns
-    -------
-    (proved, detail, backend)
-
-    >>> prove_pd_ldl(np.array([[2, -1], [-1, 2]]), use_flint=False)[0]
-    True
-    >>> prove_pd_ldl(np.array([[1, 2], [2, 1]]), use_flint=False)[:2]
-    (False, 'leading principal minor 2 is -3')
-    """
-    a = np.asarray(a_int, dtype=object)
-    size = a.shape[0]
-    if size == 0:
-        return True, "empty matrix", "python"
-    if use_flint is None:
-        use_flint = flint_available()
-    if use_flint:
-        import flint
-        m = flint.fmpz_mat([[int(x) for x in row] for row in a])
-        perm, _, _, upper = m.fflu()
-        if all(perm[i, i] == 1 for i in range(size)):
-            for k in range(size):
-                if not upper[k, k] > 0:
-                    return False, f"leading principal minor {k + 1} is {_short(int(upper[k, k]))}", "flint"
-            return True, f"all {size} leading principal minors positive", "flint"
-        # a permuted row means some pivot was 0 for flint; decide without relying on its choice
-    prev = 1
-    a = a.copy()
-    for k in range(size):
-        p = a[k, k]
-        if p <= 0:
-            return False, f"leading principal minor {k + 1} is {_short(int(p))}", "python"
-        if k + 1 < size:
-            col = a[k + 1:, k]
-            a[k + 1:, k + 1:] = (p * a[k + 1:, k + 1:] - np.outer(col, col)) // prev
-        prev = p
-    return True, f"all {size} leading principal minors positive", "python"
-
-
-def _short(x: int) -> str:
-    s = str(x)
-    return s if len(s) <= 24 else f"{s[:8]}...({len(s)} digits)"
-
-
-def cholesky_shift(n: int, diag: int) -> float:
-    """The shifted diagonal ``d̃`` of :func:`prove_pd_cholesky`: the largest float below ``d - γ/(1-γ)·n·d``.
-
-    ``γ = γ_{n+1} = (n+1)u / (1 - (n+1)u)``, ``u = 2⁻⁵³``, computed exactly; the shift actually
-    used is ``α = d - d̃ > γ/(1-γ)·n·d``.
-
-    >>> d = cholesky_shift(100, 2**30); 1.2e-3 < 2**30 - d < 1.21e-3     # ≈ 101·100·2³⁰·2⁻⁵³
-    True
-    """
-    g = (n + 1) * _U / (1 - (n + 1) * _U)
-    target = Fraction(diag) - g / (1 - g) * n * diag
-    f = float(target)
-    if Fraction(f) >= target:
-        f = math.nextafter(f, -math.inf)
-    return f
-
-
-_TINY, _HUGE = 2.0**-500, 2.0**500
-
-
-def prove_pd_cholesky(a_int) -> tuple[bool, str, str]:
-    """Prove that ``A`` (symmetric, integer, constant diagonal ``d``) is positive definite by float Cholesky.
-
-    Criterion (the approach of "Verification of positive definiteness", 2006): run the
-    Cholesky recurrence in IEEE double on ``Ã = A - αI``, whose diagonal is the float
-    ``d̃ = cholesky_shift(n, d)`` (so ``α = d - d̃ > γ/(1-γ)·n·d``, with ``γ = γ_{n+1}``,
-    ``u = 2⁻⁵³``); if it completes, ``A`` is positive definite.
-
-    Proof.  The off-diagonal entries are integers below ``2⁵³`` and the diagonal is the
-    float ``d̃``, so ``Ã`` is stored exactly.  The
-    recurrence below is the standard one (``r_kk = sqrt(a_kk - Σ_{l<k} r_lk²)``,
-    ``r_kj = (a_kj - Σ_{l<k} r_lk r_lj) / r_kk``, sums subtracted in the order ``l = 0, 1, ...``):
-    right-looking, one BLAS ``dsyr`` rank-1 update ``a_ij <- a_ij - r_ki r_kj`` of the upper
-    triangle per step (with or without a fused multiply-add, each update obeys the standard
-    rounding model ``fl(a - bc) = (a - bc(1+δ₁))(1+δ₂)``, ``|δ| <= u``, which is all the bound needs).
-    If it runs to completion without underflow, the computed factor satisfies
-    ``R̂ᵀR̂ = Ã + E`` with ``|E| <= γ_{n+1}|R̂ᵀ||R̂|`` ("Accuracy and Stability of Numerical
-    Algorithms", 2nd ed., 2002, Theorem 10.3; theorem number quoted from memory).  By Cauchy–Schwarz
-    ``(|R̂ᵀ||R̂|)_ij <= ||r_i|| ||r_j||`` (``r_i`` the i-th column), and
-    ``||r_i||² = ã_ii + E_ii <= ã_ii + γ||r_i||²``, so ``||r_i||² <= ã_ii/(1-γ)``.  Hence
-    ``||E||₂ <= || |E| ||₂ <= γ/(1-γ)·||ddᵀ||₂ = γ/(1-γ)·tr(Ã) = γ/(1-γ)·n·d̃ < α``.
-    So ``A = R̂ᵀR̂ - E + αI ⪰ (α - ||E||₂) I ≻ 0``.  Underflow is excluded by checking that
-    every computed ``r`` is 0 or has modulus in ``[2⁻⁵⁰⁰, 2⁵⁰⁰]``: then every product and
-    quotient is a normal number, and an addition that yields a subnormal is exact.
-
-    Returns
-    -------
-    (proved, detail, backend)
-
-    >>> prove_pd_cholesky(np.array([[4, -1], [-1, 4]]))[0]
-    True
-    >>> prove_pd_cholesky(np.array([[1, 2], [2, 1]]))[0]
-    False
-    """
-    a_int = np.asarray(a_int)
-    size = a_int.shape[0]
-    if size == 0:
-        return True, "empty matrix", "numpy"
-    diag = np.diag(a_int)
-    d = int(diag[0])
-    if not (diag == d).all():
-        raise ValueError("prove_pd_cholesky needs a constant diagonal")
-    if int(np.max(np.abs(a_int))) >= 2**53:
-        return False, "entries too large for exact float64 storage", "numpy"
-    dshift = cholesky_shift(size, d)
-    alpha = Fraction(d) - Fraction(dshift)
-    from scipy.linalg.blas import dsyr
-
-    a = np.asfortranarray(a_int, dtype=np.float64)
-    a[np.diag_indices(size)] = dshift
-    x = np.zeros(size)
-    for k in range(size):
-        p = a[k, k]
-        if not p > 0.0:
-            return False, f"pivot {k + 1} of the shifted matrix is {p:.3g} (shift α = {float(alpha):.3g})", "numpy"
-        r = math.sqrt(p)
-        row = a[k, k + 1:] / r
-        nz = np.abs(row[row != 0.0])
-        if r < _TINY or r > _HUGE or (nz.size and (nz.min() < _TINY or nz.max() > _HUGE)):
-            return False, f"Cholesky left the safe exponent range at step {k + 1}", "numpy"
-        a[k, k + 1:] = row
-        x[:] = 0.0
-        x[k + 1:] = row
-        # upper triangle: a_ij <- a_ij - r_ki r_kj for k < i <= j (entries with x_i = 0 are unchanged exactly)
-        a = dsyr(-1.0, x, lower=0, a=a, overwrite_a=1)
-    return True, f"float Cholesky of A - α·I completed (α = {float(alpha):.3g}, {size} rows)", "numpy"
-
-
-def prove_pd_residual(a_int, lam_min_hint: float | None = None) -> tuple[bool, str, str]:
-    """Prove that the symmetric integer matrix ``A`` is positive definite by an exactly checked float Cholesky.
-
-    No floating-point error analysis is involved: a float Cholesky factor only *suggests* a
-    certificate, which is then checked in exact integer arithmetic.
-
-    1. ``σ = λ/2`` with ``λ`` a float estimate of ``λ_min(A)`` (``lam_min_hint`` or ``eigvalsh``);
-       ``R`` = LAPACK Cholesky factor of ``A - σI`` (float).
-    2. ``R_int = rint(R·2^t)`` (integers of at most 40 bits), split as ``R_int = 2²⁰·H + L`` with
-       ``|H| <= 2²⁰`` and ``0 <= L < 2²⁰``.  ``S = R_intᵀR_int = 2⁴⁰HᵀH + 2²⁰(HᵀL + LᵀH) + LᵀL``:
-       each of the three float64 matrix products (``LᵀH = (HᵀL)ᵀ``) has integer operands below ``2²⁰`` and
-       ``n <= 2048`` terms, so every partial sum is an integer below ``2⁵¹`` and the
-       products are exact (in any summation order, with or without FMA).
-    3. ``E = 2^{2t}·A - S`` exactly (int64 with every intermediate checked to stay below
-       ``2⁶²`` first, see :func:`_residual_slack_int64`; else Python integers).  ``S`` is a Gram matrix, so
-       ``2^{2t}A = S + E ⪰ E``; if ``E`` is strictly diagonally dominant with positive
-       diagonal (Gershgorin), ``E ≻ 0`` and hence ``A ≻ 0``.
-
-    Returns
-    -------
-    (proved, detail, backend)
-
-    >>> prove_pd_residual(np.array([[4, -1], [-1, 4]]))[0], prove_pd_residual(np.array([[1, 2], [2, 1]]))[0]
-    (True, False)
-    """
-    import scipy.linalg
-
-    a_int = np.asarray(a_int, dtype=np.int64)
-    size = a_int.shape[0]
-    if size == 0:
-        return True, "empty matrix", "exact-residual"
-    if size > 2048:
-        return False, "exact residual check handles at most 2048 rows", "exact-residual"
-    if int(np.max(np.abs(a_int))) >= 2**53:
-        return False, "entries too large for exact float64 storage", "exact-residual"
-    af = a_int.astype(np.float64)
-    lam = float(np.linalg.eigvalsh(af)[0]) if lam_min_hint is None else float(lam_min_hint)
-    if not lam > 0:
-        return False, f"float estimate of the smallest eigenvalue is {lam:.3g}", "exact-residual"
-    sigma = lam / 2
-    try:
-        r = scipy.linalg.cholesky(af - sigma * np.eye(size), lower=False, check_finite=True)
-    except np.linalg.LinAlgError:
-        return False, "float Cholesky of A - σI failed", "exact-residual"
-    top = float(np.max(np.abs(r)))
-    t = 40 - math.frexp(top)[1]
-    r_int = np.rint(np.ldexp(r, t)).astype(np.int64)
-    hi, lo = r_int >> 20, r_int & (2**20 - 1)
-    hf, lf = hi.astype(np.float64), lo.astype(np.float64)
-    hh, hl, ll = hf.T @ hf, hf.T @ lf, lf.T @ lf
-    hh_i, hl_i, ll_i = (np.rint(m).astype(np.int64) for m in (hh, hl, ll))  # exact: integers below 2**51
-    y = hl_i + hl_i.T
-    slack = _residual_slack_int64(a_int, t, hh_i, y, ll_i)
-    if slack is None:  # intermediate values too large for int64: Python integers
-        gram = hh_i.astype(object) * 2**40 + y.astype(object) * 2**20 + ll_i.astype(object)
-        e = a_int.astype(object) * (2 ** (2 * t)) - gram if t >= 0 else \
-            a_int.astype(object) - gram / Fraction(2) ** (-2 * t)
-        diag = e.diagonal().copy()
-        slack = diag - (np.abs(e).sum(axis=1) - np.abs(diag))
-    worst = int(np.argmin(slack))
-    if not slack[worst] > 0:
-        return False, f"exact residual not diagonally dominant at row {worst + 1}", "exact-residual"
-    return True, f"exact residual of a float Cholesky of A - σI is diagonally dominant ({size} rows)", \
-        "exact-residual"
-
-
-def _residual_slack_int64(a_int, t, hh, y, ll):
-    """Gershgorin slack ``E_ii - Σ_{k≠i} |E_ik|`` of ``E = 2^{2t}A - 2⁴⁰HH - 2²⁰Y - LL`` in int64.
-
-    Evaluated as ``E = 2²⁰(2²⁰(2^{2t-40}A - HH) - Y) - LL``; every intermediate is checked to stay
-    below ``2⁶²`` in modulus before it is formed, so no int64 operation overflows; row sums split
-    ``|E|`` into 31-bit halves.  Returns None when a check fails (the caller uses Python integers).
-    """
-    s2 = 2 * t - 40
-    if s2 < 0 or int(np.max(np.abs(a_int))) >= 2 ** (62 - s2):
-        return None
-    x = a_int * (2**s2) - hh
-    if int(np.max(np.abs(x))) >= 2**41:
-        return None
-    z = x * 2**20 - y
-    if int(np.max(np.abs(z))) >= 2**41:
-        return None
-    e = z * 2**20 - ll
-    ab = np.abs(e)
-    hi, lo = ab >> 31, ab & (2**31 - 1)
-    rows = [int(h) * 2**31 + int(lw) for h, lw in zip(hi.sum(axis=1), lo.sum(axis=1))]
-    diag = [int(v) for v in e.diagonal()]
-    return np.array([d - (r - abs(d)) for d, r in zip(diag, rows)], dtype=object)
-
-
 # ---------------------------------------------------------------------------------------------
 # Rounding helpers
 # ---------------------------------------------------------------------------------------------
@@ -663,12 +388,7 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
     sym = cert.symbols
     two_outputs = len(set(cert.outputs)) == 2
     g_file = cert.gamma.toarray() if sp.issparse(cert.gamma) else np.asarray(cert.gamma, dtype=np.float64)
-    scale_file = float(np.max(np.abs(g_file), initial=0.0)) if np.isfinite(g_file).all() else math.inf
-    asym = float(np.max(np.abs(g_file - g_file.T), initial=0.0))
-    eq = out[:, None] == out[None, :]
-    eq_mass = float(np.max(np.abs(np.where(eq, g_file, 0.0)), initial=0.0))
-    gs = np.where(eq, 0.0, (g_file + g_file.T) / 2.0)
-    neg = float(max(0.0, -gs.min(initial=0.0))) if bound == "positive" else 0.0
+    checks, eq_mass, asym, neg = _file_checks(g_file, out, bound, tol)
 
     n_int, q = rational_gamma(g_file, out, denominator, positive=(bound == "positive"))
     gq = n_int / q
@@ -678,15 +398,6 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
     costs = [Fraction(float(c)) for c in cert.costs]
     masks = [sym[:, j][:, None] != sym[:, j][None, :] for j in range(n)]
     norms = [_max_abs_eig(np.where(mk, gq, 0.0)) for mk in masks]
-    checks = []
-    ok = eq_mass <= tol * max(scale_file, 1e-300)
-    checks.append(("equal_outputs", ok, f"max |Γ| on equal-output pairs {eq_mass:.3g} (zeroed; max |Γ| "
-                                        f"{scale_file:.3g})"))
-    ok = asym <= tol * max(scale_file, 1e-300)
-    checks.append(("symmetric", ok, f"max |Γ - Γᵀ| = {asym:.3g} (symmetrised)"))
-    if bound == "positive":
-        ok = neg <= max(1e-3, tol) * max(scale_file, 1e-300)
-        checks.append(("nonnegative", ok, f"most negative entry {-neg:.3g} clipped to 0"))
 
     ratios = [nj / float(c) for nj, c in zip(norms, costs)]
     worst = max(ratios, default=0.0)
@@ -699,23 +410,7 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
                               size, n, dt, tuple(checks))
     k_scale = _scale_up(worst * (1.0 + safety))
     parts = (np.flatnonzero(out == 0), np.flatnonzero(out == 1)) if two_outputs else None
-    # extra power of two so that the bounds m_j / (Q·T) have a fine grid whatever Q is
-    fine = 2 ** max(0, K_BITS - 2 - int(np.max(np.abs(n_int))).bit_length())
-    proofs = []
-    backends = set()
-    for j in range(n):
-        tj = time.perf_counter()
-        m_j = math.ceil(q * fine * k_scale * costs[j])
-        nj = np.where(masks[j], n_int, 0) * fine
-        if not nj.any():
-            proved = m_j > 0
-            proofs.append(PositionProof(j, costs[j], norms[j], Fraction(m_j, q * fine), "zero", proved,
-                                        "Γ_q∘Δ_j = 0", time.perf_counter() - tj))
-            continue
-        proved, detail, used = _prove_position(nj, m_j, parts, method, use_flint)
-        backends.add(used[1])
-        proofs.append(PositionProof(j, costs[j], norms[j], Fraction(m_j, q * fine), used[0], proved, detail,
-                                    time.perf_counter() - tj))
+    proofs, backends = _prove_positions(n_int, q, k_scale, costs, masks, norms, parts, method, use_flint)
     all_proved = all(p.proved for p in proofs)
     bad = [p.position for p in proofs if not p.proved]
     checks.append(("constraints", all_proved, "every c_j'·I ± Γ_q∘Δ_j proved positive definite" if all_proved
@@ -729,6 +424,15 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
         # the exact bound sits about a factor (1 + s) below the float ratio by construction
         ok = Fraction(float(claimed)) <= lower_exact * (1 + Fraction(safety)) * (1 + Fraction(claim_rtol))
         checks.append(("claimed_lower", ok, f"claimed {float(claimed):.10g} vs exact {lower:.10g}"))
+    verified, used_method, dt, msg = _verdict(checks, proofs, lower, lower_exact, t0)
+    log.info("rigorous: %s", msg)
+    return RigorousReport(msg, verified, lower_exact, lower, rq, k_scale, proved_scale, q, safety, used_method,
+                          "+".join(sorted(backends)) or "none", tuple(proofs), bound, fnorm, float_lower, eq_mass,
+                          asym, neg, None if claimed is None else float(claimed), size, n, dt, tuple(checks))
+
+
+def _verdict(checks, proofs, lower, lower_exact, t0) -> tuple[bool, str, float, str]:
+    """``(verified, method, seconds, message)`` once every check is in (``t0``: the start time)."""
     verified = all(ok for _, ok, _ in checks)
     methods = {p.method for p in proofs if p.method != "zero"}
     used_method = methods.pop() if len(methods) == 1 else ("mixed" if methods else "zero")
@@ -738,10 +442,56 @@ def verify_rigorous(cert, *, denominator: int | None = None, safety: float = DEF
                f"by {used_method} in {dt:.2f} s")
     else:
         msg = "rigorous verification failed: " + "; ".join(f"{nm} ({det})" for nm, ok, det in checks if not ok)
-    log.info("rigorous: %s", msg)
-    return RigorousReport(msg, verified, lower_exact, lower, rq, k_scale, proved_scale, q, safety, used_method,
-                          "+".join(sorted(backends)) or "none", tuple(proofs), bound, fnorm, float_lower, eq_mass,
-                          asym, neg, None if claimed is None else float(claimed), size, n, dt, tuple(checks))
+    return verified, used_method, dt, msg
+
+
+def _file_checks(g_file: np.ndarray, out: np.ndarray, bound: str, tol: float) -> tuple[list, float, float, float]:
+    """Step 1's residue in the file: the checks ``equal_outputs``, ``symmetric`` (and ``nonnegative``).
+
+    Returns ``(checks, equal_output_mass, asymmetry, negative_mass)``; each mass is measured
+    against ``tol`` times ``max|Γ|`` of the file.
+    """
+    scale_file = float(np.max(np.abs(g_file), initial=0.0)) if np.isfinite(g_file).all() else math.inf
+    asym = float(np.max(np.abs(g_file - g_file.T), initial=0.0))
+    eq = out[:, None] == out[None, :]
+    eq_mass = float(np.max(np.abs(np.where(eq, g_file, 0.0)), initial=0.0))
+    gs = np.where(eq, 0.0, (g_file + g_file.T) / 2.0)
+    neg = float(max(0.0, -gs.min(initial=0.0))) if bound == "positive" else 0.0
+    checks = []
+    ok = eq_mass <= tol * max(scale_file, 1e-300)
+    checks.append(("equal_outputs", ok, f"max |Γ| on equal-output pairs {eq_mass:.3g} (zeroed; max |Γ| "
+                                        f"{scale_file:.3g})"))
+    ok = asym <= tol * max(scale_file, 1e-300)
+    checks.append(("symmetric", ok, f"max |Γ - Γᵀ| = {asym:.3g} (symmetrised)"))
+    if bound == "positive":
+        ok = neg <= max(1e-3, tol) * max(scale_file, 1e-300)
+        checks.append(("nonnegative", ok, f"most negative entry {-neg:.3g} clipped to 0"))
+    return checks, eq_mass, asym, neg
+
+
+def _prove_positions(n_int, q, k_scale, costs, masks, norms, parts, method, use_flint) -> tuple[list, set]:
+    """Step 5 at every position: ``m_j`` and the proof of ``m_j·I ∓ T·N∘Δ_j ≻ 0``.
+
+    Returns ``(proofs, backends)``: one :class:`PositionProof` per position and the backends used.
+    """
+    # extra power of two so that the bounds m_j / (Q·T) have a fine grid whatever Q is
+    fine = 2 ** max(0, K_BITS - 2 - int(np.max(np.abs(n_int))).bit_length())
+    proofs = []
+    backends = set()
+    for j in range(len(costs)):
+        tj = time.perf_counter()
+        m_j = math.ceil(q * fine * k_scale * costs[j])
+        nj = np.where(masks[j], n_int, 0) * fine
+        if not nj.any():
+            proved = m_j > 0
+            proofs.append(PositionProof(j, costs[j], norms[j], Fraction(m_j, q * fine), "zero", proved,
+                                        "Γ_q∘Δ_j = 0", time.perf_counter() - tj))
+            continue
+        proved, detail, used = _prove_position(nj, m_j, parts, method, use_flint)
+        backends.add(used[1])
+        proofs.append(PositionProof(j, costs[j], norms[j], Fraction(m_j, q * fine), used[0], proved, detail,
+                                    time.perf_counter() - tj))
+    return proofs, backends
 
 
 def _max_abs_eig(m: np.ndarray) -> float:

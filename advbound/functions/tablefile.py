@@ -35,6 +35,7 @@ True
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import re
@@ -165,6 +166,94 @@ def sort_symbols(symbols: Iterable[str]) -> tuple[str, ...]:
     return tuple(sorted(syms, key=lambda s: (s == "*", not s.isdigit(), s)))
 
 
+@dataclasses.dataclass
+class _Directives:
+    """What the ``#!`` lines of a table file set (``None``: not given)."""
+
+    alphabet: tuple[str, ...] | None = None
+    costs: list[float] | None = None
+    names: list[str] | None = None
+    groups: list[tuple[int, ...]] | None = None
+    description: str = ""
+
+
+def _read_directive(d: _Directives, stripped: str, lineno: int, err) -> str:
+    """Apply the directive line ``stripped`` (``#! word rest``) to ``d``; returns ``word``.
+
+    ``err(lineno, msg)`` makes the one-line error naming the source and line.
+    """
+    parts = stripped[2:].split(None, 1)
+    if not parts:
+        raise err(lineno, "empty directive '#!'")
+    word, rest = parts[0], (parts[1] if len(parts) > 1 else "")
+    if word == "alphabet":
+        syms = tuple(rest.replace(" ", ""))
+        if not syms:
+            raise err(lineno, "directive 'alphabet' lists no symbol")
+        for s in syms:
+            if s == "#":
+                raise err(lineno, "'#' cannot be an alphabet symbol")
+        if len(set(syms)) != len(syms):
+            raise err(lineno, f"alphabet {''.join(syms)!r} lists a symbol twice")
+        d.alphabet = syms
+    elif word == "costs":
+        d.costs = []
+        for tok in rest.split():
+            try:
+                c = float(tok)
+            except ValueError:
+                raise err(lineno, f"cost {tok!r} is not a number") from None
+            if not (math.isfinite(c) and c > 0):
+                raise err(lineno, f"cost {tok!r} must be finite and positive")
+            d.costs.append(c)
+    elif word == "names":
+        d.names = rest.split()
+    elif word == "groups":
+        d.groups = []
+        for tok in rest.split():
+            try:
+                d.groups.append(tuple(int(p) - 1 for p in tok.split(",")))
+            except ValueError:
+                raise err(lineno, f"group {tok!r} is not a comma-separated list of positions") from None
+    elif word == "description":
+        d.description = rest.strip()
+    else:
+        raise err(lineno, f"unknown directive {word!r} (expected alphabet, costs, names, groups, "
+                          "description)")
+    return word
+
+
+def _table_function(d: _Directives, seen: dict[str, tuple[str, int]], n: int, source: str) -> PartialFunction:
+    """The function of the read lines ``seen`` (input -> (output, line)) and the directives ``d``.
+
+    Checks the directives against the input length ``n`` and sorts the inputs into canonical order.
+    """
+    alphabet = d.alphabet
+    if alphabet is None:
+        alphabet = sort_symbols(ch for x in seen for ch in set(x))
+    costs, names, groups = d.costs, d.names, d.groups
+    if costs is not None and len(costs) != n:
+        raise InvalidFunctionError(f"{source}: directive 'costs' gives {len(costs)} costs for {n} positions")
+    if names is not None and len(names) != n:
+        raise InvalidFunctionError(f"{source}: directive 'names' gives {len(names)} names for {n} positions")
+    if groups is not None and sorted(j for g in groups for j in g) != list(range(n)):
+        raise InvalidFunctionError(f"{source}: directive 'groups' must partition the positions 1..{n}")
+    fields = {"description": d.description}
+    if names is not None:
+        fields["position_names"] = tuple(names)
+    if groups is not None:
+        fields["groups"] = tuple(groups)
+    # lengths and symbols are checked above (with line numbers); sort into canonical order here:
+    # translated strings compare like lists of alphabet indices
+    to_index = str.maketrans({s: chr(i) for i, s in enumerate(alphabet)})
+    keys = sorted(seen, key=lambda s: s.translate(to_index))
+    try:
+        return PartialFunction(tuple(alphabet), tuple(keys), tuple(seen[k][0] for k in keys),
+                               tuple(costs) if costs is not None else (1.0,) * n, **fields)
+    except InvalidFunctionError as e:
+        raise InvalidFunctionError(f"{source}: {e}") from None
+
+
 def parse_table(text: str, source: str = "<string>") -> PartialFunction:
     """Parse table-file text (see the module docstring) into a :class:`PartialFunction`.
 
@@ -180,11 +269,7 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
     InvalidFunctionError
         One line naming ``source``, the line number and the problem.
     """
-    alphabet: tuple[str, ...] | None = None
-    costs: list[float] | None = None
-    names: list[str] | None = None
-    groups: list[tuple[int, ...]] | None = None
-    description = ""
+    d = _Directives()
     seen: dict[str, tuple[str, int]] = {}
     n: int | None = None
     first_line = 0
@@ -197,45 +282,8 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
     for lineno, raw in enumerate(text.splitlines(), 1):
         stripped = raw.strip()
         if stripped.startswith("#!"):
-            parts = stripped[2:].split(None, 1)
-            if not parts:
-                raise err(lineno, "empty directive '#!'")
-            word, rest = parts[0], (parts[1] if len(parts) > 1 else "")
-            if word == "alphabet":
-                syms = tuple(rest.replace(" ", ""))
-                if not syms:
-                    raise err(lineno, "directive 'alphabet' lists no symbol")
-                for s in syms:
-                    if s == "#":
-                        raise err(lineno, "'#' cannot be an alphabet symbol")
-                if len(set(syms)) != len(syms):
-                    raise err(lineno, f"alphabet {''.join(syms)!r} lists a symbol twice")
-                alphabet = syms
+            if _read_directive(d, stripped, lineno, err) == "alphabet":
                 drop_known = None
-            elif word == "costs":
-                costs = []
-                for tok in rest.split():
-                    try:
-                        c = float(tok)
-                    except ValueError:
-                        raise err(lineno, f"cost {tok!r} is not a number") from None
-                    if not (math.isfinite(c) and c > 0):
-                        raise err(lineno, f"cost {tok!r} must be finite and positive")
-                    costs.append(c)
-            elif word == "names":
-                names = rest.split()
-            elif word == "groups":
-                groups = []
-                for tok in rest.split():
-                    try:
-                        groups.append(tuple(int(p) - 1 for p in tok.split(",")))
-                    except ValueError:
-                        raise err(lineno, f"group {tok!r} is not a comma-separated list of positions") from None
-            elif word == "description":
-                description = rest.strip()
-            else:
-                raise err(lineno, f"unknown directive {word!r} (expected alphabet, costs, names, groups, "
-                                  "description)")
             continue
         body = raw.split("#", 1)[0].split()
         if not body:
@@ -247,6 +295,7 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
             n, first_line = len(x), lineno
         elif len(x) != n:
             raise err(lineno, f"input {_short(x)} has length {len(x)}, expected {n} (line {first_line})")
+        alphabet = d.alphabet
         if alphabet is not None:
             if drop_known is None:
                 drop_known = str.maketrans({s: None for s in alphabet})
@@ -268,28 +317,7 @@ def parse_table(text: str, source: str = "<string>") -> PartialFunction:
     if duplicates:
         warnings.warn(f"{source}: {len(duplicates)} duplicate input line(s) with the same output ignored "
                       f"(first at line {duplicates[0]})", AdvboundWarning, stacklevel=2)
-    if alphabet is None:
-        alphabet = sort_symbols(ch for x in seen for ch in set(x))
-    if costs is not None and len(costs) != n:
-        raise InvalidFunctionError(f"{source}: directive 'costs' gives {len(costs)} costs for {n} positions")
-    if names is not None and len(names) != n:
-        raise InvalidFunctionError(f"{source}: directive 'names' gives {len(names)} names for {n} positions")
-    if groups is not None and sorted(j for g in groups for j in g) != list(range(n)):
-        raise InvalidFunctionError(f"{source}: directive 'groups' must partition the positions 1..{n}")
-    fields = {"description": description}
-    if names is not None:
-        fields["position_names"] = tuple(names)
-    if groups is not None:
-        fields["groups"] = tuple(groups)
-    # lengths and symbols are checked above (with line numbers); sort into canonical order here:
-    # translated strings compare like lists of alphabet indices
-    to_index = str.maketrans({s: chr(i) for i, s in enumerate(alphabet)})
-    keys = sorted(seen, key=lambda s: s.translate(to_index))
-    try:
-        return PartialFunction(tuple(alphabet), tuple(keys), tuple(seen[k][0] for k in keys),
-                               tuple(costs) if costs is not None else (1.0,) * n, **fields)
-    except InvalidFunctionError as e:
-        raise InvalidFunctionError(f"{source}: {e}") from None
+    return _table_function(d, seen, n, source)
 
 
 def read_table(path: str | os.PathLike, *, max_bytes: int | None = MAX_TABLE_BYTES) -> PartialFunction:

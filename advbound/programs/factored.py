@@ -1,12 +1,13 @@
 """A factored first-order solver for ADV± of two-output functions, with verified bounds on both sides.
 
-This module owns :func:`solve_factored`, a low-rank (Burer–Monteiro style) treatment of the dual
+This module owns :func:`solve_factored`, a low-rank (factorised, ``X_j = U_j U_j^T``) treatment of the dual
 program of :mod:`advbound.programs.sdp` (see ``formulations.md``)::
 
     minimise t  s.t.  sum_j c_j X_j[x, x] <= t,   sum_{j: x_j != y_j} X_j[x, y] = 1  (f(x) != f(y)),
                       X_j = U_j U_j^T.
 
-It is solved by an augmented Lagrangian method whose inner problems go to a numpy L-BFGS.  Only the
+It is solved by an augmented Lagrangian method whose inner problems go to a numpy L-BFGS (that
+machinery, with :class:`FactoredState`, is in :mod:`advbound.programs.factored_lagrangian`).  Only the
 0-input x 1-input block of each ``X_j`` and its diagonal enter.  For each position ``j`` and each
 0-input symbol ``a``, the pairs ``{x_j = a} x {y_j != a}`` form one rectangular block, which is
 evaluated from its short side.  No ``|D| x |D|`` matrix per position is ever formed.
@@ -37,19 +38,20 @@ Both reported numbers are verified independently of the optimiser:
 from __future__ import annotations
 
 import copy
+import dataclasses
 import logging
 import math
 import time
 
 import numpy as np
 import scipy
-import scipy.linalg.blas as _blas
 
 from advbound import quantities as _q
 from advbound import status as _status
 from advbound.evidence.certificate import Certificate
-from advbound.functions.domain import domain
+from advbound.functions.domain import Domain, domain
 from advbound.errors import InvalidFunctionError
+from advbound.programs.factored_lagrangian import FactoredState, _diag_sums, _gamma_from, _Pairs
 from advbound.result import SolveResult, SolverStats
 
 __all__ = ["solve_factored", "FactoredState", "repair_factors", "block_ratio"]
@@ -74,139 +76,6 @@ _DEFAULTS = dict(
 )
 
 
-class _Pairs:
-    """The bipartite pair structure: sums ``S = sum_j M_j o (U0_j U1_j^T)`` and their adjoints.
-
-    Factors are stored position-major, ``u0[j]`` of shape ``(n0, r)``.  For every position ``j`` and
-    every symbol ``a`` of the 0-inputs, the pairs ``{x: x_j = a} x {y: y_j != a}`` form one block;
-    a block is evaluated in *row form* (its few rows against all 1-inputs, then masked) or in
-    *column form* (all 0-inputs against its few columns), whichever is smaller, so that a
-    position-search row costs ``O(|D0| |D1| r)`` per position block instead of ``O(|D0| |D1| N r)``.
-    """
-
-    def __init__(self, s0: np.ndarray, s1: np.ndarray, costs: np.ndarray):
-        self.n0, self.n1 = s0.shape[0], s1.shape[0]
-        self.N = s0.shape[1]
-        self.costs = np.asarray(costs, dtype=float)
-        self.s0, self.s1 = s0, s1
-        self.rows = []   # (j, A index array, column mask over D1 (float))
-        self.cols = []   # (j, C index array, row mask over D0 (float))
-        cnt = np.zeros((self.n0, self.n1))
-        deg0 = np.zeros((self.N, self.n0))
-        deg1 = np.zeros((self.N, self.n1))
-        for j in range(self.N):
-            for a in np.unique(s0[:, j]):
-                amask = s0[:, j] == a
-                cmask = s1[:, j] != a
-                na, nc = int(amask.sum()), int(cmask.sum())
-                if na == 0 or nc == 0:
-                    continue
-                cnt += np.outer(amask, cmask)
-                if na * self.n1 <= nc * self.n0:
-                    self.rows.append((j, np.flatnonzero(amask), cmask.astype(float)))
-                else:
-                    self.cols.append((j, np.flatnonzero(cmask), amask.astype(float)))
-                deg0[j] += amask * nc
-                deg1[j] += cmask * na
-        self.count = cnt
-        # diagonal preconditioner: variables of (x, j) meet deg[j, x] constraints
-        mean = float(np.concatenate([deg0.ravel(), deg1.ravel()]).mean())
-        self.w0 = np.sqrt(mean / np.maximum(deg0, 1.0))[:, :, None]
-        self.w1 = np.sqrt(mean / np.maximum(deg1, 1.0))[:, :, None]
-
-    def sums(self, u0, u1):
-        """``S[x, y] = sum_{j: x_j != y_j} <u0[j, x], u1[j, y]>``."""
-        s = np.zeros((self.n0, self.n1))
-        st = np.zeros((self.n1, self.n0))
-        for j, a, cm in self.rows:
-            s[a] += (u0[j][a] @ u1[j].T) * cm
-        for j, c, am in self.cols:
-            st[c] += (u1[j][c] @ u0[j].T) * am
-        return s + st.T
-
-    def adjoint(self, lam, u0, u1):
-        """Gradients of ``<lam, S(u0, u1)>`` with respect to ``u0`` and ``u1``."""
-        g0 = np.zeros_like(u0)
-        g1 = np.zeros_like(u1)
-        lt = np.ascontiguousarray(lam.T)
-        for j, a, cm in self.rows:
-            k = lam[a] * cm
-            g0[j][a] += k @ u1[j]
-            g1[j] += k.T @ u0[j][a]
-        for j, c, am in self.cols:
-            k = lt[c] * am
-            g1[j][c] += k @ u0[j]
-            g0[j] += k.T @ u1[j][c]
-        return g0, g1
-
-    def mask(self, j: int) -> np.ndarray:
-        """Boolean ``(n0, n1)``: pairs that differ at position ``j``."""
-        return self.s0[:, j][:, None] != self.s1[:, j][None, :]
-
-
-def _lbfgs(fun, z, maxiter, m=8, gtol=1e-12, deadline=math.inf):
-    """Minimise ``fun`` (returning value and gradient) by L-BFGS with a backtracking Armijo search.
-
-    Vector updates go through BLAS ``daxpy``/``ddot`` in place: at ``10^5``-``10^6`` variables the
-    two-loop recursion, not the function, would otherwise dominate.
-    """
-    axpy, dot = _blas.daxpy, _blas.ddot
-    f, g = fun(z)
-    ss, ys, rhos = [], [], []
-    nit = 0
-    gn0 = math.sqrt(dot(g, g)) or 1.0
-    q = np.empty_like(z)
-    for nit in range(1, maxiter + 1):
-        q[:] = g
-        alphas = []
-        for s_, y_, r_ in zip(reversed(ss), reversed(ys), reversed(rhos)):
-            a_ = r_ * dot(s_, q)
-            alphas.append(a_)
-            axpy(y_, q, a=-a_)
-        if ys:
-            q *= dot(ss[-1], ys[-1]) / dot(ys[-1], ys[-1])
-        else:
-            q *= 1.0 / gn0
-        for (s_, y_, r_), a_ in zip(zip(ss, ys, rhos), reversed(alphas)):
-            b_ = r_ * dot(y_, q)
-            axpy(s_, q, a=a_ - b_)
-        slope = -dot(g, q)
-        if slope >= 0:
-            ss, ys, rhos = [], [], []
-            q[:] = g
-            q *= 1.0 / gn0
-            slope = -dot(g, q)
-        step = 1.0
-        for _ in range(30):
-            zn = z.copy()
-            axpy(q, zn, a=-step)
-            fn, gn = fun(zn)
-            if fn <= f + 1e-4 * step * slope:
-                break
-            step *= 0.3
-        else:
-            break
-        # reuse the oldest pair's storage for the new one
-        if len(ss) >= m:
-            s_, y_ = ss.pop(0), ys.pop(0)
-            rhos.pop(0)
-            s_[:] = zn
-        else:
-            s_, y_ = zn.copy(), np.empty_like(z)
-        axpy(z, s_, a=-1.0)
-        y_[:] = gn
-        axpy(g, y_, a=-1.0)
-        sy = dot(s_, y_)
-        if sy > 1e-300:
-            ss.append(s_)
-            ys.append(y_)
-            rhos.append(1.0 / sy)
-        z, f, g = zn, fn, gn
-        if math.sqrt(dot(g, g)) <= gtol * gn0 or time.perf_counter() > deadline:
-            break
-    return z, f, nit
-
-
 def block_ratio(block: np.ndarray, pairs: _Pairs) -> tuple[float, np.ndarray]:
     """``(||B||, [||B o M_j||])`` for a bipartite block ``B`` (the norms of the symmetric Γ)."""
     norm = float(np.linalg.norm(block, 2)) if block.size else 0.0
@@ -222,11 +91,6 @@ def _norm_upper(b: np.ndarray) -> float:
     sv = float(np.linalg.norm(b, 2))
     # computed singular values are within p(n) eps ||b|| of the exact ones (p(n) << 1e7 here)
     return min(fro * (1 + 1e-12), sv * (1 + 1e-9) + 1e-9 * fro)
-
-
-def _diag_sums(u, costs):
-    """``sum_j c_j ||u[j, x]||^2`` for every input ``x``."""
-    return costs @ np.einsum("jxr,jxr->jx", u, u)
 
 
 def repair_factors(pairs: _Pairs, u0, u1):
@@ -252,122 +116,6 @@ def repair_factors(pairs: _Pairs, u0, u1):
     # each diagonal sum adds N r squares: relative rounding below (N r + 8) eps
     widen = 1 + (pairs.N * r + 16) * np.finfo(float).eps
     return float(math.sqrt(a0 * a1) * widen), a0, a1, share, d
-
-
-def _gamma_from(lam, mu0, mu1):
-    """``-lam / (2 sqrt(mu0 mu1^T))``, 0 on rows/columns whose multiplier vanishes."""
-    d0, d1 = np.sqrt(mu0), np.sqrt(mu1)
-    tiny = 1e-12 * max(float(d0.max(initial=0)), float(d1.max(initial=0)), 1e-300)
-    i0 = np.where(d0 > tiny, 1.0 / np.maximum(d0, tiny), 0.0)
-    i1 = np.where(d1 > tiny, 1.0 / np.maximum(d1, tiny), 0.0)
-    return -0.5 * lam * i0[:, None] * i1[None, :]
-
-
-class FactoredState:
-    """Factors ``u0 (N, |D0|, r)``, ``u1 (N, |D1|, r)``, epigraph variable and multipliers."""
-
-    def __init__(self, pairs: _Pairs, rank: int, rng: np.random.Generator):
-        self.pairs = pairs
-        n0, n1, N = pairs.n0, pairs.n1, pairs.N
-        # start from the constant point u = alpha e_1 (pair sums alpha^2 count), plus 10% noise
-        alpha = 1.0 / math.sqrt(max(float(pairs.count.mean()), 1e-12))
-        u0 = 0.1 * alpha * rng.standard_normal((N, n0, rank)) / math.sqrt(rank)
-        u1 = 0.1 * alpha * rng.standard_normal((N, n1, rank)) / math.sqrt(rank)
-        u0[:, :, 0] += alpha
-        u1[:, :, 0] += alpha
-        self.u0, self.u1 = u0, u1
-        self.t = float(max(_diag_sums(self.u0, pairs.costs).max(), _diag_sums(self.u1, pairs.costs).max()))
-        self.lam = np.zeros((n0, n1))
-        nd = n0 + n1
-        self.mu0 = np.full(n0, 1.0 / nd)
-        self.mu1 = np.full(n1, 1.0 / nd)
-
-    @property
-    def rank(self) -> int:
-        return self.u0.shape[2]
-
-    def grow(self, extra: int, rng):
-        """Append ``extra`` small random columns to every factor."""
-        n0, n1, N = self.pairs.n0, self.pairs.n1, self.pairs.N
-        eps = 1e-3 * math.sqrt(max(self.t, 1e-12) / max(N, 1))
-        self.u0 = np.concatenate([self.u0, eps * rng.standard_normal((N, n0, extra))], axis=2)
-        self.u1 = np.concatenate([self.u1, eps * rng.standard_normal((N, n1, extra))], axis=2)
-
-    def inner(self, sig_e, sig_i, maxiter, precondition=True, gtol=1e-12, deadline=math.inf):
-        """Minimise the augmented Lagrangian in (U, t) for fixed multipliers; returns the iterations."""
-        p = self.pairs
-        n0, n1, N, r = p.n0, p.n1, p.N, self.rank
-        c = p.costs
-        k0, k1 = N * n0 * r, N * n1 * r
-        lam, mu0, mu1 = self.lam, self.mu0, self.mu1
-        cst = float(mu0 @ mu0 + mu1 @ mu1)
-
-        w0 = np.broadcast_to(p.w0, (N, n0, r)) if precondition else np.ones((N, n0, r))
-        w1 = np.broadcast_to(p.w1, (N, n1, r)) if precondition else np.ones((N, n1, r))
-        wz = np.concatenate([w0.ravel(), w1.ravel(), [1.0]])
-
-        def fun(zs):
-            z = zs * wz
-            u0 = z[:k0].reshape(N, n0, r)
-            u1 = z[k0:k0 + k1].reshape(N, n1, r)
-            t = z[-1]
-            h = p.sums(u0, u1) - 1.0
-            le = lam + sig_e * h
-            gu0, gu1 = p.adjoint(le, u0, u1)
-            g0 = _diag_sums(u0, c)
-            g1 = _diag_sums(u1, c)
-            m0 = np.maximum(0.0, mu0 + sig_i * (g0 - t))
-            m1 = np.maximum(0.0, mu1 + sig_i * (g1 - t))
-            val = (t + float(np.vdot(lam, h)) + 0.5 * sig_e * float(np.vdot(h, h))
-                   + (float(m0 @ m0 + m1 @ m1) - cst) / (2 * sig_i))
-            gu0 += (2.0 * c[:, None] * m0[None, :])[:, :, None] * u0
-            gu1 += (2.0 * c[:, None] * m1[None, :])[:, :, None] * u1
-            gt = 1.0 - float(m0.sum() + m1.sum())
-            return val, np.concatenate([gu0.ravel(), gu1.ravel(), [gt]]) * wz
-
-        z0 = np.concatenate([self.u0.ravel(), self.u1.ravel(), [self.t]]) / wz
-        zs, _, nit = _lbfgs(fun, z0, maxiter, gtol=gtol, deadline=deadline)
-        z = zs * wz
-        self.u0 = z[:k0].reshape(N, n0, r)
-        self.u1 = z[k0:k0 + k1].reshape(N, n1, r)
-        self.t = float(z[-1])
-        return nit
-
-    def update(self, sig_e, sig_i):
-        """Multiplier step; returns the (max equality, max inequality) violations before it."""
-        p = self.pairs
-        h = p.sums(self.u0, self.u1) - 1.0
-        g0, g1 = _diag_sums(self.u0, p.costs), _diag_sums(self.u1, p.costs)
-        self.lam = self.lam + sig_e * h
-        viol_i = max(float(np.max(np.maximum(g0 - self.t, -self.mu0 / sig_i))),
-                     float(np.max(np.maximum(g1 - self.t, -self.mu1 / sig_i))))
-        self.mu0 = np.maximum(0.0, self.mu0 + sig_i * (g0 - self.t))
-        self.mu1 = np.maximum(0.0, self.mu1 + sig_i * (g1 - self.t))
-        return float(np.max(np.abs(h))), abs(viol_i)
-
-    def gamma_block(self):
-        """The adversary block ``-lam / (2 sqrt(mu0 mu1^T))`` (0 where a multiplier vanishes)."""
-        return _gamma_from(self.lam, self.mu0, self.mu1)
-
-    def escape(self, block, rng, extra=1):
-        """Grow the rank, seeding one new column along the most violated LMI direction."""
-        p = self.pairs
-        d0, d1 = np.sqrt(self.mu0), np.sqrt(self.mu1)
-        best, bj, bvec = 0.0, None, None
-        for j in range(p.N):
-            b = np.where(p.mask(j), block, 0.0)
-            if not b.any():
-                continue
-            uu, ss, vv = np.linalg.svd(b, full_matrices=False)
-            if ss[0] / p.costs[j] > best:
-                best, bj, bvec = ss[0] / p.costs[j], j, (uu[:, 0], vv[0])
-        self.grow(extra, rng)
-        if bj is not None:
-            x0, x1 = d0 * bvec[0], -d1 * bvec[1]
-            nrm = math.sqrt(float(x0 @ x0 + x1 @ x1)) or 1.0
-            scale = 0.1 * math.sqrt(max(self.t, 1e-12))
-            self.u0[bj, :, -1] += scale * x0 / nrm
-            self.u1[bj, :, -1] += scale * x1 / nrm
 
 
 def _symmetrise_block(block, perms, i0, i1, size):
@@ -452,6 +200,45 @@ def solve_factored(f, bound="general", tol=1e-4, time_limit=600.0, rank=None, se
     InvalidFunctionError
         For a function with fewer or more than two outputs, ``bound="positive"``, or an unknown option.
     """
+    opt = _checked_options(f, bound, options)
+    start = time.perf_counter()
+    rng = np.random.default_rng(seed)
+    prob = _factored_problem(f, opt)
+    r0 = int(rank) if rank is not None else min(4, int(opt["max_rank"]))
+    if r0 < 1:
+        raise InvalidFunctionError(f"solve_factored: rank={rank!r} must be a positive integer")
+    st = FactoredState(prob.pairs, r0, rng)
+    best = _optimise(prob, st, rng, opt, tol, start, time_limit, verbose)
+    elapsed_opt = time.perf_counter() - start
+
+    # -- final verification from the certificate data alone -----------------------------------------
+    full, lower, how_lo = _verified_lower(prob, best.lo_block, opt)
+    upper, dual_t, dual_plus = _verified_upper(prob, best, opt)
+    status, msg = _verdict(lower, upper, tol)
+    msg += f"; lower bound from {how_lo}; upper bound from the repaired factored dual"
+    elapsed = time.perf_counter() - start
+    cert = Certificate(
+        alphabet=tuple(f.alphabet), inputs=tuple(f.inputs), outputs=tuple(f.outputs),
+        costs=np.asarray(f.costs, dtype=float), gamma=full, dual_t=dual_t, dual_plus=dual_plus,
+        metadata={"description": f.description, "bound": bound, "solver": "factored-alm",
+                  "rank": int(st.rank), "seed": int(seed), "claimed_lower": float(lower),
+                  "claimed_upper": None if upper is None else float(upper)})
+    stats = SolverStats(name="factored-alm", version=f"scipy {scipy.__version__}", time=elapsed,
+                        iterations=best.iters, tolerances={"tol": float(tol)},
+                        options={"rank": int(st.rank), "rounds": best.rounds, "seed": int(seed),
+                                 "optimise_time": round(elapsed_opt, 3)})
+    report = None
+    if dual_plus is not None and status in _status.SUCCESS:
+        status, msg, report = _recheck(cert, status, msg)
+    return SolveResult(message=msg, status=status, bound=bound, lower=lower, upper=upper, objective=float(st.t),
+                       domain_size=prob.domain.size, solver_stats=stats, certificate=cert, verification=report)
+
+
+# ---------------------------------------------------------------------------------------------
+# The steps of solve_factored
+# ---------------------------------------------------------------------------------------------
+def _checked_options(f, bound, options: dict) -> dict:
+    """The options merged with the defaults, after rejecting unknown options, bounds and functions."""
     unknown = sorted(set(options) - set(_DEFAULTS))
     if unknown:
         raise InvalidFunctionError(f"solve_factored: unknown option(s) {', '.join(unknown)}; "
@@ -463,8 +250,24 @@ def solve_factored(f, bound="general", tol=1e-4, time_limit=600.0, rank=None, se
     if not f.is_boolean:
         raise InvalidFunctionError(f"solve_factored: f has {len(f.labels)} output value(s); the factored solver "
                                    "handles exactly two (use the dense solver otherwise)")
-    start = time.perf_counter()
-    rng = np.random.default_rng(seed)
+    return opt
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class _Problem:
+    """The data of one factored solve: the domain split by output, the live positions and their pairs."""
+
+    domain: Domain
+    i0: np.ndarray       # inputs with output 0, in domain order
+    i1: np.ndarray       # inputs with output 1
+    live: np.ndarray     # positions where not every input has the same symbol
+    costs: np.ndarray    # costs of the live positions
+    pairs: _Pairs
+    perms: list          # input permutations of the symmetry group (empty: no averaging)
+
+
+def _factored_problem(f, opt: dict) -> _Problem:
+    """Split the domain of ``f`` by output and build the pair structure over the live positions."""
     dom = domain(f)
     i0, i1 = dom.part(0), dom.part(1)
     s0, s1 = dom.symbols[i0], dom.symbols[i1]
@@ -473,76 +276,102 @@ def solve_factored(f, bound="general", tol=1e-4, time_limit=600.0, rank=None, se
     costs = dom.costs[live]
     pairs = _Pairs(s0[:, live], s1[:, live], costs)
     perms = _group_perms(f, dom) if opt["symmetrize"] else []
-    r0 = int(rank) if rank is not None else min(4, int(opt["max_rank"]))
-    if r0 < 1:
-        raise InvalidFunctionError(f"solve_factored: rank={rank!r} must be a positive integer")
-    st = FactoredState(pairs, r0, rng)
+    return _Problem(dom, i0, i1, live, costs, pairs, perms)
+
+
+def _block_lower(block: np.ndarray, pairs: _Pairs, costs: np.ndarray) -> float:
+    """``||Γ|| / max_j ||Γ o Δ_j|| / c_j`` of the symmetric Γ with bipartite block ``block`` (0 if undefined)."""
+    nb, cn = block_ratio(block, pairs)
+    worst = float(np.max(cn / costs)) if cn.size else 0.0
+    return nb / worst if worst > 0 else 0.0
+
+
+@dataclasses.dataclass
+class _Best:
+    """The best verified candidates met by the optimiser, and its counters."""
+
+    lo: float = 0.0
+    lo_block: np.ndarray | None = None
+    up: float = math.inf
+    up_state: tuple | None = None
+    iters: int = 0
+    rounds: int = 0
+
+
+def _better_lower(prob: _Problem, st: FactoredState, lo: float, block: np.ndarray, avg):
+    """Try the running average of the multipliers and the symmetrised block; keep the best lower bound.
+
+    Returns ``(lo, block, avg)`` with ``avg`` the updated running average (since the last rank change).
+    """
+    pairs, costs = prob.pairs, prob.costs
+    # a running average of the multipliers (since the last rank change) often certifies more
+    if avg is None:
+        avg = [st.lam.copy(), st.mu0.copy(), st.mu1.copy(), 1]
+    else:
+        k_ = avg[3] + 1
+        avg = [avg[0] + (st.lam - avg[0]) / k_, avg[1] + (st.mu0 - avg[1]) / k_,
+               avg[2] + (st.mu1 - avg[2]) / k_, k_]
+        ablock = _gamma_from(avg[0], avg[1], avg[2])
+        alo = _block_lower(ablock, pairs, costs)
+        if alo > lo:
+            lo, block = alo, ablock
+    if prob.perms:
+        sblock = _symmetrise_block(block, prob.perms, prob.i0, prob.i1, prob.domain.size)
+        slo = _block_lower(sblock, pairs, costs)
+        if slo > lo:
+            lo, block = slo, sblock
+    return lo, block, avg
+
+
+def _optimise(prob: _Problem, st: FactoredState, rng, opt: dict, tol: float, start: float, time_limit: float,
+              verbose: bool) -> _Best:
+    """The augmented-Lagrangian rounds: inner solves, multiplier steps, penalty updates and rank escapes."""
+    deadline = start + time_limit
+    pairs = prob.pairs
     p_count = pairs.n0 * pairs.n1
     # penalties scaled to the problem: an all-pairs violation eps costs ~ sigma * eps^2 relative to t
     scale_e = 1.0 / p_count
     scale_i = 1.0 / (pairs.n0 + pairs.n1)
     sig = float(opt["sigma"])
-    best_lo, best_lo_block = 0.0, None
-    best_up, best_up_state = math.inf, None
-    iters = 0
+    best = _Best()
     prev_viol = math.inf
-    rounds_done = 0
     lo_stall = 0
     avg = None
     hold = 0
     for rnd in range(int(opt["rounds"])):
-        rounds_done = rnd + 1
+        best.rounds = rnd + 1
         t_est = max(st.t, 1e-6)
         se, si = sig * scale_e * t_est, sig * scale_i / t_est
         gt = max(float(opt["inner_gtol"]) * 0.1 ** rnd, 1e-10) if opt["inner_gtol"] else 1e-12
-        iters += st.inner(se, si, int(opt["inner_iter"]), precondition=bool(opt["precondition"]), gtol=gt,
-                          deadline=start + time_limit)
+        best.iters += st.inner(se, si, int(opt["inner_iter"]), precondition=bool(opt["precondition"]), gtol=gt,
+                               deadline=deadline)
         ve, vi = st.update(se, si)
         block = st.gamma_block()
-        nb, cn = block_ratio(block, pairs)
-        worst = float(np.max(cn / costs)) if cn.size else 0.0
-        lo = nb / worst if worst > 0 else 0.0
-        # a running average of the multipliers (since the last rank change) often certifies more
-        if avg is None:
-            avg = [st.lam.copy(), st.mu0.copy(), st.mu1.copy(), 1]
-        else:
-            k_ = avg[3] + 1
-            avg = [avg[0] + (st.lam - avg[0]) / k_, avg[1] + (st.mu0 - avg[1]) / k_,
-                   avg[2] + (st.mu1 - avg[2]) / k_, k_]
-            ablock = _gamma_from(avg[0], avg[1], avg[2])
-            anb, acn = block_ratio(ablock, pairs)
-            aw = float(np.max(acn / costs)) if acn.size else 0.0
-            if aw > 0 and anb / aw > lo:
-                lo, block = anb / aw, ablock
-        if perms:
-            sblock = _symmetrise_block(block, perms, i0, i1, dom.size)
-            snb, scn = block_ratio(sblock, pairs)
-            sw = float(np.max(scn / costs)) if scn.size else 0.0
-            if sw > 0 and snb / sw > lo:
-                lo, block = snb / sw, sblock
+        lo = _block_lower(block, pairs, prob.costs)
+        lo, block, avg = _better_lower(prob, st, lo, block, avg)
         up = repair_factors(pairs, st.u0, st.u1)[0]
         if opt["polish"] and (up - lo) / up > tol:
             # a feasibility polish for the upper bound only: same multipliers, 100x the penalty
             pol = copy.copy(st)
-            iters += pol.inner(100 * se, si, max(1, int(opt["inner_iter"]) // 2),
-                               precondition=bool(opt["precondition"]), deadline=start + time_limit)
+            best.iters += pol.inner(100 * se, si, max(1, int(opt["inner_iter"]) // 2),
+                                    precondition=bool(opt["precondition"]), deadline=deadline)
             pup = repair_factors(pairs, pol.u0, pol.u1)[0]
-            if pup < up and pup < best_up:
-                best_up, best_up_state = pup, (pol.u0.copy(), pol.u1.copy())
-        if lo > best_lo:
-            best_lo, best_lo_block = lo, block.copy()
+            if pup < up and pup < best.up:
+                best.up, best.up_state = pup, (pol.u0.copy(), pol.u1.copy())
+        if lo > best.lo:
+            best.lo, best.lo_block = lo, block.copy()
             lo_stall = 0
         else:
             lo_stall += 1
-        if up < best_up:
-            best_up, best_up_state = up, (st.u0.copy(), st.u1.copy())
-        gap = (best_up - best_lo) / best_up
+        if up < best.up:
+            best.up, best.up_state = up, (st.u0.copy(), st.u1.copy())
+        gap = (best.up - best.lo) / best.up
         if verbose:
             log.info("factored round %d: rank %d, sigma %.3g, t %.8g, viol %.2e/%.2e, lower %.8g, upper %.8g, "
                      "gap %.2e", rnd + 1, st.rank, sig, st.t, ve, vi, lo, up, gap)
         if gap <= tol or time.perf_counter() - start > time_limit:
             break
-        if opt["sigma_reset"] and ve < float(opt["sigma_reset"]) and (best_up - best_lo) / best_up > tol \
+        if opt["sigma_reset"] and ve < float(opt["sigma_reset"]) and (best.up - best.lo) / best.up > tol \
                 and sig > float(opt["sigma"]):
             # the dual side has converged but the multipliers lag: well-conditioned inner problems at
             # the initial penalty refine the multipliers (their error scales with sigma x inner residual)
@@ -560,28 +389,41 @@ def solve_factored(f, bound="general", tol=1e-4, time_limit=600.0, rank=None, se
             lo_stall = 0
             avg = None
             prev_viol = math.inf
-    elapsed_opt = time.perf_counter() - start
+    return best
 
-    # -- final verification from the certificate data alone -----------------------------------------
+
+def _verified_lower(prob: _Problem, block, opt: dict) -> tuple[np.ndarray, float, str]:
+    """The full Γ of the best block, its lower bound recomputed from Γ alone, and how it was computed."""
+    dom, i0, i1 = prob.domain, prob.i0, prob.i1
     full = np.zeros((dom.size, dom.size))
-    if best_lo_block is not None:
-        full[np.ix_(i0, i1)] = best_lo_block
-        full[np.ix_(i1, i0)] = best_lo_block.T
+    if block is not None:
+        full[np.ix_(i0, i1)] = block
+        full[np.ix_(i1, i0)] = block.T
     if dom.size <= int(opt["dense_check"]):
         lower = float(_q.adversary_ratio(full, dom.symbols, dom.costs))
         how_lo = "dense eigvalsh of the full Γ (quantities.adversary_ratio)"
     else:
-        nb, cn = block_ratio(full[np.ix_(i0, i1)], pairs)
-        worst = float(np.max(cn / costs)) if cn.size else 0.0
-        lower = nb / worst if worst > 0 else 0.0
+        lower = _block_lower(full[np.ix_(i0, i1)], prob.pairs, prob.costs)
         how_lo = "dense SVD of the bipartite block of Γ (equal to the norms of the symmetric Γ)"
+    return full, lower, how_lo
+
+
+def _verified_upper(prob: _Problem, best: _Best, opt: dict):
+    """``(upper, dual_t, dual_plus)`` from the repaired best factors; the witness only when it may be stored."""
     upper, dual_t, dual_plus = None, None, None
-    if best_up_state is not None and math.isfinite(best_up):
-        u0, u1 = best_up_state
-        upper, a0, a1, share, dshift = repair_factors(pairs, u0, u1)
+    if best.up_state is not None and math.isfinite(best.up):
+        dom = prob.domain
+        u0, u1 = best.up_state
+        upper, a0, a1, share, dshift = repair_factors(prob.pairs, u0, u1)
         want = opt["store_dual"]
         if want is True or (want == "auto" and dom.n * dom.size ** 2 <= float(opt["dual_limit"])):
-            dual_t, dual_plus = upper, _dual_witness(dom, live, i0, i1, pairs, u0, u1, share, dshift, a0, a1)
+            dual_t, dual_plus = upper, _dual_witness(dom, prob.live, prob.i0, prob.i1, prob.pairs, u0, u1, share,
+                                                     dshift, a0, a1)
+    return upper, dual_t, dual_plus
+
+
+def _verdict(lower: float, upper: float | None, tol: float) -> tuple[str, str]:
+    """Status word and message for the verified bounds."""
     gap = None if upper is None else (upper - lower) / upper
     if upper is not None and gap <= tol:
         status = _status.OPTIMAL
@@ -593,34 +435,25 @@ def solve_factored(f, bound="general", tol=1e-4, time_limit=600.0, rank=None, se
     else:
         status = _status.FAILED
         msg = "no usable point"
-    msg += f"; lower bound from {how_lo}; upper bound from the repaired factored dual"
-    elapsed = time.perf_counter() - start
-    cert = Certificate(
-        alphabet=tuple(f.alphabet), inputs=tuple(f.inputs), outputs=tuple(f.outputs),
-        costs=np.asarray(f.costs, dtype=float), gamma=full, dual_t=dual_t, dual_plus=dual_plus,
-        metadata={"description": f.description, "bound": bound, "solver": "factored-alm",
-                  "rank": int(st.rank), "seed": int(seed), "claimed_lower": float(lower),
-                  "claimed_upper": None if upper is None else float(upper)})
-    stats = SolverStats(name="factored-alm", version=f"scipy {scipy.__version__}", time=elapsed,
-                        iterations=iters, tolerances={"tol": float(tol)},
-                        options={"rank": int(st.rank), "rounds": rounds_done, "seed": int(seed),
-                                 "optimise_time": round(elapsed_opt, 3)})
+    return status, msg
+
+
+def _recheck(cert: Certificate, status: str, msg: str):
+    """Re-check a stored witness with the dense verifier: ``(status, msg, report)``."""
     report = None
-    if dual_plus is not None and status in _status.SUCCESS:
-        # the witness is small enough to be stored, so it can also be checked by the dense verifier
-        try:
-            from advbound.evidence.verify import verify_certificate
-        except ImportError:
-            verify_certificate = None
-        if verify_certificate is not None:
-            report = verify_certificate(cert)
-            if not report.passed:
-                status = _status.UNVERIFIED
-                msg = f"independent verification failed: {report.message}; " + msg
-            else:
-                msg += "; stored witness re-checked by advbound.evidence.verify"
-    return SolveResult(message=msg, status=status, bound=bound, lower=lower, upper=upper, objective=float(st.t),
-                       domain_size=dom.size, solver_stats=stats, certificate=cert, verification=report)
+    # the witness is small enough to be stored, so it can also be checked by the dense verifier
+    try:
+        from advbound.evidence.verify import verify_certificate
+    except ImportError:
+        verify_certificate = None
+    if verify_certificate is not None:
+        report = verify_certificate(cert)
+        if not report.passed:
+            status = _status.UNVERIFIED
+            msg = f"independent verification failed: {report.message}; " + msg
+        else:
+            msg += "; stored witness re-checked by advbound.evidence.verify"
+    return status, msg, report
 
 
 def _dual_witness(dom, live, i0, i1, pairs, u0, u1, share, dshift, a0, a1):

@@ -13,10 +13,11 @@ A function that is constant on its domain raises
 :class:`~advbound.errors.InvalidFunctionError` (its bound is 0; there is nothing
 to solve).
 
-Methods: ``"dense"`` (this module: one dense SDP over the whole domain);
-``"symmetric"`` and ``"factored"`` are dispatched to :mod:`advbound.programs.symmetric`
-(``solve_symmetric``) and :mod:`advbound.programs.factored` (``solve_factored``) when those
-modules are present.
+Methods: ``"auto"`` (the default) picks one of the others by
+:func:`advbound.programs.choose.choose_method`; ``"dense"`` (this module: one dense SDP over the
+whole domain); ``"symmetric"``, ``"factored"`` and ``"rows"`` are dispatched to
+:mod:`advbound.programs.symmetric`, :mod:`advbound.programs.factored` and
+:mod:`advbound.programs.rowsym`.  The result's ``method`` names the program that ran.
 """
 
 from __future__ import annotations
@@ -44,7 +45,7 @@ log = logging.getLogger("advbound")
 _DISPATCH = {"symmetric": ("advbound.programs.symmetric", "solve_symmetric"),
              "factored": ("advbound.programs.factored", "solve_factored"),
              "rows": ("advbound.programs.rowsym", "solve_rows")}
-METHODS = ("dense",) + tuple(_DISPATCH)
+METHODS = ("auto", "dense") + tuple(_DISPATCH)
 
 #: Γ support thresholds tried by :func:`solve`; each gives a valid lower bound, the best is kept.
 _SUPPORT_THRESHOLDS = (1e-12, 1e-9, 1e-6)
@@ -59,8 +60,8 @@ def check_solvable(f: PartialFunction, bound: str) -> None:
                                    f"its adversary bound is 0")
 
 
-def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: float | None = None,
-          max_iters: int | None = None, verbose: bool = False, with_dual: bool = True, method: str = "dense",
+def solve(f: PartialFunction, bound: str = "general", solver: str | None = None, tol: float | None = None,
+          max_iters: int | None = None, verbose: bool = False, with_dual: bool = True, method: str = "auto",
           dual_source: str = "multipliers", repair_tol: float = 1e-2, allow_large: bool = False,
           **options) -> SolveResult:
     """Solve the adversary program of ``f`` and return verified bounds.
@@ -71,7 +72,8 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
         Costs ``f.costs`` give the cost-weighted bound (all 1: plain ADV± / ADV).
     bound : {"general", "positive"}
         ADV± (negative weights allowed) or ADV (non-negative weights).
-    solver : {"SCS", "CLARABEL"}
+    solver : {"SCS", "CLARABEL"}, optional
+        Default: the one ``method="auto"`` picks; SCS for an explicit ``"dense"`` or ``"symmetric"``.
     tol : float, optional
         Solver tolerance (see :func:`advbound.programs.sdp.solve_formulation`); for ``method="factored"`` the
         target relative gap between the verified bounds.  Default: 1e-7, or 1e-4 for ``"factored"``.
@@ -81,8 +83,10 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
         Let the solver print progress.
     with_dual : bool
         Also verify a dual witness and report ``upper``.
-    method : {"dense", "symmetric", "factored", "rows"}
-        ``"rows"``: the S_n-reduced program of interchangeable rows (:mod:`advbound.programs.rowsym`).
+    method : {"auto", "dense", "symmetric", "factored", "rows"}
+        ``"auto"`` (default) picks by :func:`advbound.programs.choose.choose_method` and says why in
+        ``result.method_reason``; ``"rows"``: the S_n-reduced program of interchangeable rows
+        (:mod:`advbound.programs.rowsym`).
     dual_source : {"multipliers", "program"}
         Where the dual witness comes from (see :mod:`advbound.programs.sdp`).
     repair_tol : float
@@ -112,20 +116,36 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
     advbound.functions.sizing.TooLargeError
         When the dense program does not fit in memory and ``allow_large`` is false.
     """
+    if method not in METHODS:
+        raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
+    check_solvable(f, bound)
+    reason = f"method {method!r} was asked for"
+    if method == "auto":
+        from advbound.programs.choose import choose_method
+
+        choice = choose_method(f, bound, solver)
+        method, solver, reason = choice.method, choice.solver, choice.reason
+        log.info("method auto: %s (%s)", method, reason)
     if tol is None:
         tol = {"factored": 1e-4, "rows": 1e-8}.get(method, 1e-7)
     if method in _DISPATCH:
-        check_solvable(f, bound)
         modname, funcname = _DISPATCH[method]
         func = getattr(importlib.import_module(modname), funcname)
         # pass the common settings the other method declares; everything else goes through **options
         params = inspect.signature(func).parameters
-        extra = {k: v for k, v in dict(solver=solver, max_iters=max_iters, with_dual=with_dual).items()
+        chosen = solver if method == "rows" else (solver or "SCS")
+        extra = {k: v for k, v in dict(solver=chosen, max_iters=max_iters, with_dual=with_dual).items()
                  if k in params}
-        return func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)
-    if method != "dense":
-        raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
-    check_solvable(f, bound)
+        res = func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)
+    else:
+        res = _solve_dense(f, bound, solver or "SCS", tol, max_iters, verbose, with_dual, dual_source, repair_tol,
+                           allow_large, options)
+    return dataclasses.replace(res, method=method, method_reason=reason)
+
+
+def _solve_dense(f, bound, solver, tol, max_iters, verbose, with_dual, dual_source, repair_tol, allow_large,
+                 options) -> SolveResult:
+    """The dense program: formulate, solve, extract Γ at several thresholds, verify, report."""
     _check_size(f, bound, solver, allow_large)
     from advbound.programs import sdp
     from advbound.evidence.verify import extract_gamma, verify_certificate
@@ -143,7 +163,7 @@ def solve(f: PartialFunction, bound: str = "general", solver: str = "SCS", tol: 
             st = _status.FAILED
         return SolveResult(message=f"{raw.message}; no point returned: {_status.MESSAGES[st]}", status=st, **base)
 
-    meta = _metadata(f, bound, raw, tol, max_iters, method, dual_source)
+    meta = _metadata(f, bound, raw, tol, max_iters, "dense", dual_source)
     meta["verification"] = {"repair_tol": float(repair_tol), "support_thresholds": list(_SUPPORT_THRESHOLDS)}
     if not (np.all(np.isfinite(raw.weights)) and np.all(np.isfinite(raw.rho))):
         return SolveResult(message=f"solver returned {raw.status!r} with non-finite entries in its point; no bound",

@@ -1,64 +1,19 @@
-"""The symmetry-reduced (invariant, block-diagonalised) ADV± / ADV program.
+"""The symmetry-reduced (invariant, block-diagonalised) ADV± / ADV program, solved and verified.
 
-This module owns :func:`formulate_symmetric` (the invariant program of a
-partial function under its automorphism group, as sparse conic data) and
-:func:`solve_symmetric` (solve it, expand the point and the dual witness to the
-full domain, and have :func:`advbound.evidence.verify.verify_certificate` decide the
-reported bounds).
+This module owns :func:`solve_symmetric`: build the invariant program
+(:func:`advbound.programs.symmetric_program.formulate_symmetric`), hand it to SCS or CLARABEL
+as sparse conic data, expand the point and the dual witness to the full domain, and have
+:func:`advbound.evidence.verify.verify_certificate` decide the reported bounds.  The
+formulation (the reduction, its forms and structure) is described in
+:mod:`advbound.programs.symmetric_program`, the block decomposition in
+:mod:`advbound.programs.symmetric_blocks`; the public names of both
+(:func:`formulate_symmetric`, :class:`SymmetricFormulation`, :class:`LmiBlock`,
+:func:`block_basis`, :func:`chordal_cliques`) are importable from here as well.
 
 >>> from advbound.functions.builders import or_function
 >>> r = solve_symmetric(or_function(4))
 >>> r.status, round(r.lower, 5), round(r.upper, 5)       # ADV±(OR_4) = sqrt(4) = 2
 ('optimal', 2.0, 2.0)
-
-The reduction
--------------
-Let ``G`` be the automorphism group (:func:`advbound.functions.symmetry.automorphism_group`).
-If ``(W, ρ)`` is feasible (optimal), so is every ``(P_g W P_gᵀ, P_g ρ)``, and by
-convexity so is their average.  So we may restrict to invariant points:
-
-* ``W`` is constant on the orbits of ``G`` on unordered pairs ``{x, y}`` with
-  ``f(x) ≠ f(y)`` (one variable ``w_k`` per orbit; ``W∘F = 0`` by construction);
-* ``ρ`` is constant on the orbits of inputs (one variable ``p_r`` per orbit).
-
-For invariant ``(W, ρ)`` the LMI of position ``g(j)`` is the LMI of ``j``
-conjugated by ``P_g``, so one representative per position orbit is kept.  The
-LMI ``L_j = c_j diag(ρ) ∓ W∘Δ_j`` of a representative commutes with the
-permutation matrices of the stabiliser ``H`` of ``j``, i.e. lies in the
-commutant algebra ``C_H``.  It is block-diagonalised as in "A numerical
-algorithm for block-diagonal decomposition of matrix *-algebras" (2009):
-
-1. take a random symmetric element ``X = Σ a_s (P_{h_s} + P_{h_s}ᵀ)`` of the group
-   algebra of ``H`` (which is the commutant of ``C_H``); its eigenspaces are
-   ``C_H``-invariant, so ``Qᵀ L_j Q`` is block diagonal for ``Q`` = the eigenvectors
-   grouped by eigenvalue.  ``X`` is block diagonal over the ``H``-orbits of inputs, so
-   the eigenvectors are computed orbit by orbit and ``Q`` stays sparse;
-2. refine: two eigenspaces of the same dimension that carry equivalent copies of
-   one irreducible representation are coupled by a random (non-symmetric) element
-   ``Z`` of the group algebra; ``Q_aᵀ Z Q_b = σ·R`` with ``R`` orthogonal, and after
-   rotating by ``R`` the two blocks of every LMI coincide.  The copy is dropped (it
-   imposes the same PSD constraint) only after that equality has been checked on
-   random points of the LMI's span (a polynomial identity; a failed check keeps both).
-
-Every decomposition is checked on a random point (off-diagonal blocks vanish);
-any remaining mistake could only weaken the solver's point, never a reported
-number, since the bounds are verified on the full domain.
-
-Forms: two output values (``"bipartite"``) keep only the upper LMI
-``c_j diag(ρ) - W∘Δ_j ⪰ 0`` (the lower one is conjugate by ``diag(I, -I)``);
-three or more values (``"full"``) keep both sides, block-diagonalised by the same
-``Q``; the positive bound adds ``w >= 0`` and keeps only the upper side.
-
-Structure.  The LMI data are assembled sparsely: the coefficient matrix of a block
-is ``(Q⊗Q)ᵀ P_j`` with ``P_j`` the sparse incidence of the entries of ``L_j``; no
-``|D|²``-sized dense expression is formed.  For a position-search row, ``W∘Δ_j``
-only touches rows and columns of the inputs whose non-star sits at ``j`` (an arrow
-matrix), so ``P_j`` and the block data are correspondingly sparse.  With
-``chordal=True`` each sparse block is further split along a chordal extension of its
-pattern (:func:`chordal_cliques`): for the arrow, every input ``z`` whose non-star is
-elsewhere only meets the inputs of the other output class that have their non-star at
-``j``, so it lands in a small clique, and the largest cone shrinks (e.g. 40 instead of
-152 for OR of 3 rows at ``T = 10``).  CLARABEL applies a similar decomposition itself.
 
 The dual witness
 ----------------
@@ -82,11 +37,12 @@ import scipy.sparse as sp
 
 from advbound import status as _status
 from advbound.evidence.certificate import Certificate
-from advbound.functions.domain import Domain, domain
-from advbound.errors import AdvboundWarning, InvalidFunctionError, SolverError
+from advbound.errors import AdvboundWarning, SolverError
 from advbound.functions.function import PartialFunction
+from advbound.functions.symmetry import Group, orbits_of_pairs, stabilizer
+from advbound.programs.symmetric_blocks import _psd_completion, block_basis, chordal_cliques
+from advbound.programs.symmetric_program import LmiBlock, SymmetricFormulation, formulate_symmetric
 from advbound.result import SolveResult, SolverStats
-from advbound.functions.symmetry import Group, automorphism_group, orbits_of_inputs, orbits_of_pairs, position_orbits, stabilizer
 
 __all__ = ["SymmetricFormulation", "LmiBlock", "formulate_symmetric", "solve_symmetric", "block_basis",
            "chordal_cliques", "WITNESS_LIMIT"]
@@ -100,401 +56,6 @@ _SCS_OPTIONS = frozenset({
 })
 #: Largest ``N·|D|²`` for which the full-domain dual witness is built by default.
 WITNESS_LIMIT = 2 * 10 ** 7
-
-
-# ---------------------------------------------------------------------------------------------
-# Block-diagonalisation of the commutant of a stabiliser
-# ---------------------------------------------------------------------------------------------
-def _perm_matrix(perm: np.ndarray) -> sp.csr_matrix:
-    """``P`` with ``P e_i = e_{perm[i]}``."""
-    n = perm.size
-    return sp.csr_matrix((np.ones(n), (perm, np.arange(n))), shape=(n, n))
-
-
-def _group_algebra_element(H: Group, rng: np.random.Generator, symmetric: bool, count: int = 8) -> sp.csr_matrix:
-    n = H.function.size
-    elems = list(H.elements) + [H.random_element(rng) for _ in range(count)]
-    x = sp.csr_matrix((n, n))
-    for e in elems:
-        p = _perm_matrix(e.inputs)
-        a = rng.standard_normal()
-        x = x + a * (p + p.T if symmetric else p)
-    return x.tocsr()
-
-
-def block_basis(H: Group, sample, rng: np.random.Generator | None = None, check: bool = True):
-    """Orthonormal bases of the blocks of the commutant of ``H`` (with multiplicities).
-
-    Parameters
-    ----------
-    H : Group
-        The symmetry group; its action on inputs is used.
-    sample : callable
-        ``sample(rng)`` returns a list of sparse ``|D| x |D|`` matrices: random points of the
-        linear span that must be block-diagonalised (all ``H``-invariant).  Used for checks.
-    rng : numpy Generator, optional
-    check : bool
-        Check that off-diagonal blocks vanish on a sample.
-
-    Returns
-    -------
-    list of (scipy.sparse.csc_matrix, int)
-        ``(Q_b, d_b)``: ``Q_bᵀ L Q_b`` is the block, which occurs ``d_b`` times (up to rotation)
-        in ``Qᵀ L Q``; the columns of all ``Q_b`` and their dropped copies form an orthonormal basis.
-    """
-    rng = np.random.default_rng(0) if rng is None else rng
-    n = H.function.size
-    if H.order == 1 or not H.elements:
-        return [(sp.identity(n, format="csc"), 1)]
-    X = _group_algebra_element(H, rng, symmetric=True)
-    orb = orbits_of_inputs(H)
-    vals, rows, cols, data = [], [], [], []
-    col = 0
-    for r in range(int(orb.max()) + 1):
-        idx = np.flatnonzero(orb == r)
-        xo = X[idx][:, idx].toarray()
-        w, v = np.linalg.eigh(xo)
-        v[np.abs(v) < 1e-14] = 0.0
-        for k in range(idx.size):
-            nz = np.flatnonzero(v[:, k])
-            rows.append(idx[nz])
-            cols.append(np.full(nz.size, col))
-            data.append(v[nz, k])
-            vals.append(w[k])
-            col += 1
-    vals = np.array(vals)
-    V = sp.csc_matrix((np.concatenate(data), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
-    order = np.argsort(vals, kind="stable")
-    scale = max(1.0, float(np.abs(vals).max()))
-    gaps = np.diff(vals[order]) > 1e-7 * scale
-    cluster = np.concatenate([[0], np.cumsum(gaps)])
-    blocks = [V[:, order[cluster == c]] for c in range(int(cluster[-1]) + 1)]
-    if check:
-        pts = sample(rng)
-        full = sp.hstack(blocks).tocsc()
-        sizes = np.cumsum([0] + [b.shape[1] for b in blocks])
-        for L in pts:
-            T = (full.T @ L @ full).toarray()
-            mask = np.ones_like(T, dtype=bool)
-            for a in range(len(blocks)):
-                mask[sizes[a]:sizes[a + 1], sizes[a]:sizes[a + 1]] = False
-            off = float(np.abs(T[mask]).max(initial=0.0))
-            if off > 1e-8 * max(1.0, float(np.abs(T).max(initial=0.0))):
-                log.warning("block decomposition check failed (off-diagonal %.3g); using one block", off)
-                return [(sp.identity(n, format="csc"), 1)]
-    return _merge_copies(H, blocks, sample, rng)
-
-
-def _merge_copies(H, blocks, sample, rng):
-    """Drop blocks that repeat an earlier one up to an orthogonal change of basis (checked)."""
-    Z = _group_algebra_element(H, rng, symmetric=False)
-    pts = sample(rng)
-    kept: list[list] = []  # [Q, multiplicity, [block of each sample point]]
-    for Qb in blocks:
-        m = Qb.shape[1]
-        merged = False
-        for entry in kept:
-            Qa = entry[0]
-            if Qa.shape[1] != m:
-                continue
-            M = (Qa.T @ Z @ Qb).toarray()
-            if not np.abs(M).max(initial=0.0) > 1e-8:
-                continue
-            u, s, vt = np.linalg.svd(M)
-            if s[-1] < (1 - 1e-6) * s[0]:
-                continue
-            Qr = Qb @ (vt.T @ u.T)  # now Qaᵀ Z Qr = σ I
-            same = True
-            for L, Ba in zip(pts, entry[2]):
-                Bb = Qr.T @ (L @ Qr)
-                if np.abs(Ba - Bb).max(initial=0.0) > 1e-8 * max(1.0, np.abs(Ba).max(initial=0.0)):
-                    same = False
-                    break
-            if same:
-                entry[1] += 1
-                merged = True
-                break
-        if not merged:
-            kept.append([Qb, 1, [(Qb.T @ L @ Qb).toarray() for L in pts]])
-    return [(sp.csc_matrix(Q), int(d)) for Q, d, _ in kept]
-
-
-# ---------------------------------------------------------------------------------------------
-# Chordal decomposition of sparse blocks
-# ---------------------------------------------------------------------------------------------
-def chordal_cliques(pattern: np.ndarray) -> list[np.ndarray]:
-    """Cliques of a chordal extension of a sparsity pattern, by greedy elimination.
-
-    Vertices are eliminated by smallest current degree ``d`` (each elimination makes its
-    remaining neighbours a clique, the usual elimination game, whose filled graph is chordal)
-    while ``(d + 1)^3 < 3 r^2`` with ``r`` the number of vertices left: a cone of size ``d + 1``
-    is cheaper than the share it removes from the remaining clique.  The remaining vertices form
-    the last clique.  The cliques cover every maximal clique of the filled graph, so a matrix
-    ``B`` with this pattern is PSD iff ``B = Σ_c E_cᵀ Z_c E_c`` with every ``Z_c ⪰ 0``
-    ("Positive semidefinite matrices with a given sparsity pattern", 1988).
-
-    >>> arrow = np.zeros((5, 5), bool); arrow[0, 1:] = arrow[1:, 0] = True     # a star
-    >>> [c.tolist() for c in chordal_cliques(arrow)]
-    [[1, 0], [2, 0], [3, 0], [0, 4]]
-    """
-    adj = np.array(pattern, dtype=bool)
-    adj = adj | adj.T
-    m = adj.shape[0]
-    np.fill_diagonal(adj, False)
-    alive = np.ones(m, dtype=bool)
-    deg = adj.sum(axis=1).astype(np.int64)
-    cliques = []
-    r = m
-    while r > 1:
-        d_alive = np.where(alive, deg, np.iinfo(np.int64).max)
-        v = int(np.argmin(d_alive))
-        d = int(deg[v])
-        if (d + 1) ** 3 >= 3 * r * r or d + 1 >= r:
-            break
-        nb = np.flatnonzero(adj[v] & alive)
-        cliques.append(np.concatenate([[v], nb]))
-        adj[np.ix_(nb, nb)] = True
-        adj[nb, nb] = False
-        alive[v] = False
-        adj[v, :] = False
-        adj[:, v] = False
-        deg[nb] = (adj[nb] & alive).sum(axis=1)
-        r -= 1
-    rest = np.flatnonzero(alive)
-    if rest.size:
-        cliques.append(rest)
-    return cliques
-
-
-def _maybe_chordal(coef: sp.csr_matrix, m: int, min_size: int = 48, gain: float = 2.0):
-    """Cliques for a block when the decomposition is at least ``gain`` times cheaper, else None."""
-    if m < min_size:
-        return None
-    nz = np.flatnonzero(np.diff(coef.indptr))
-    pattern = np.zeros(m * m, dtype=bool)
-    pattern[nz] = True
-    pattern = pattern.reshape(m, m)
-    cl = chordal_cliques(pattern)
-    cost = sum(float(c.size) ** 3 for c in cl)
-    return tuple(cl) if gain * cost < float(m) ** 3 else None
-
-
-def _psd_completion(Y: np.ndarray, cliques) -> np.ndarray:
-    """Complete ``Y`` (known on the clique entries) to a PSD matrix when every ``Y[c, c] ⪰ 0``.
-
-    The cliques come from :func:`chordal_cliques`: each but the last is ``[v] + N(v)`` with ``N(v)``
-    among later vertices.  Adding the vertices back in reverse elimination order, the unknown
-    entries of row ``v`` are ``Y[v, N] Y[N, N]^+ M[N, U]`` (``U`` the vertices placed so far),
-    the maximum-determinant choice, which keeps the growing matrix PSD ("Positive definite
-    completions of partial Hermitian matrices", 1984).
-    """
-    m = Y.shape[0]
-    M = np.zeros((m, m))
-    done = np.zeros(m, dtype=bool)
-    rest = cliques[-1]
-    M[np.ix_(rest, rest)] = Y[np.ix_(rest, rest)]
-    done[rest] = True
-    for cq in reversed(cliques[:-1]):
-        v, nb = int(cq[0]), cq[1:]
-        U = np.flatnonzero(done)
-        if nb.size:
-            coef = np.linalg.lstsq(M[np.ix_(nb, nb)], Y[v, nb], rcond=1e-12)[0]
-            row = coef @ M[np.ix_(nb, U)]
-            row[np.searchsorted(U, nb)] = Y[v, nb]
-            M[v, U] = row
-            M[U, v] = row
-        M[v, v] = Y[v, v]
-        done[v] = True
-    return M
-
-
-# ---------------------------------------------------------------------------------------------
-# The invariant program
-# ---------------------------------------------------------------------------------------------
-@dataclasses.dataclass(frozen=True, eq=False)
-class LmiBlock:
-    """One PSD block ``B(v) ⪰ 0`` of the reduced program.
-
-    Attributes
-    ----------
-    position : int
-        The representative position whose LMI this block comes from.
-    side : int
-        ``+1`` for ``c_j diag(ρ) - W∘Δ_j``, ``-1`` for ``c_j diag(ρ) + W∘Δ_j``.
-    basis : scipy.sparse.csc_matrix, shape (|D|, m)
-        ``Q_b``: the block is ``Q_bᵀ L_j Q_b``.
-    multiplicity : int
-        How many (rotated) copies of the block the LMI contains.
-    coefficients : scipy.sparse.csr_matrix, shape (m*m, n_variables)
-        Row ``u*m + v`` gives entry ``(u, v)`` of the block as a linear form in the variables.
-    cliques : tuple of ndarray or None
-        When set, ``B(v) ⪰ 0`` is imposed through a chordal decomposition with these cliques
-        (see :func:`chordal_cliques`) instead of one cone of size ``m``.
-    """
-
-    position: int
-    side: int
-    basis: sp.csc_matrix
-    multiplicity: int
-    coefficients: sp.csr_matrix
-    cliques: tuple | None = None
-
-    @property
-    def size(self) -> int:
-        return self.basis.shape[1]
-
-
-@dataclasses.dataclass(frozen=True, eq=False)
-class SymmetricFormulation:
-    """The invariant program of a function, as sparse data.
-
-    Variables ``v = (w_0..w_{K-1}, p_0..p_{R-1})``: one weight per orbit of unordered
-    differing-output pairs, one density per input orbit.  Maximise ``Σ_k pair_counts[k] w_k``
-    subject to ``Σ_r input_counts[r] p_r = 1``, ``p >= 0`` (``w >= 0`` for the positive bound)
-    and every block ``B(v) ⪰ 0``.
-    """
-
-    function: PartialFunction
-    domain: Domain
-    group: Group
-    bound: str
-    form: str
-    input_orbit: np.ndarray
-    pair_orbit: np.ndarray
-    pair_counts: np.ndarray
-    input_counts: np.ndarray
-    position_orbit: np.ndarray
-    representatives: tuple
-    blocks: tuple
-    build_time: float = 0.0
-
-    @property
-    def n_weights(self) -> int:
-        return int(self.pair_counts.size)
-
-    @property
-    def n_densities(self) -> int:
-        return int(self.input_counts.size)
-
-    def sizes(self) -> dict:
-        """Sizes of the reduced program next to the dense one (Python ints)."""
-        d = self.domain
-        live = [j for j in range(d.n) if (d.symbols[:, j] != d.symbols[0, j]).any()]
-        sides = 2 if any(b.side == -1 for b in self.blocks) else 1
-        return {
-            "form": self.form,
-            "group_order": int(self.group.order),
-            "weights": self.n_weights,
-            "densities": self.n_densities,
-            "representatives": len(self.representatives),
-            "block_sizes": [b.size for b in self.blocks],
-            "chordal_blocks": sum(b.cliques is not None for b in self.blocks),
-            "largest_cone": max([max(c.size for c in b.cliques) if b.cliques else b.size for b in self.blocks],
-                                default=0),
-            "dense_lmis": sides * len(live),
-            "dense_lmi_size": int(d.size),
-        }
-
-    def expand(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Full-domain ``(W, ρ)`` of a variable vector."""
-        K = self.n_weights
-        w = np.concatenate([np.asarray(v[:K], dtype=float), [0.0]])
-        W = w[self.pair_orbit]  # pair_orbit is -1 off the variable pairs -> the appended 0
-        rho = np.asarray(v[K:K + self.n_densities], dtype=float)[self.input_orbit]
-        return W, rho
-
-
-def _lmi_incidence(dom: Domain, j: int, side: int, pair_orbit, input_orbit, K: int, R: int, cost: float):
-    """Sparse ``(|D|², K + R)`` matrix: entry ``(x*n + y, var)`` is the coefficient of ``var`` in ``L_j[x, y]``."""
-    n = dom.size
-    colj = np.asarray(dom.symbols[:, j])
-    # pairs that differ at j and carry a weight variable
-    xs, ys = np.nonzero((colj[:, None] != colj[None, :]) & (pair_orbit >= 0))
-    rows = np.concatenate([xs * n + ys, np.arange(n) * (n + 1)])
-    cols = np.concatenate([pair_orbit[xs, ys], K + input_orbit])
-    vals = np.concatenate([np.full(xs.size, -float(side)), np.full(n, float(cost))])
-    return sp.csc_matrix((vals, (rows, cols)), shape=(n * n, K + R))
-
-
-def formulate_symmetric(f: PartialFunction, bound: str = "general", group: Group | None = None,
-                        seed: int = 0, chordal: bool = False) -> SymmetricFormulation:
-    """Build the invariant, block-diagonalised program of ``f``.
-
-    Parameters
-    ----------
-    f : PartialFunction
-    bound : {"general", "positive"}
-    group : Group, optional
-        Default :func:`~advbound.functions.symmetry.automorphism_group` of ``f``.  Any subgroup of the
-        symmetries is valid (a smaller group reduces less).
-    seed : int
-        Seed of the random elements used by the block decomposition.
-    chordal : bool
-        Also decompose sparse blocks into cliques (:func:`chordal_cliques`) where that is at
-        least twice cheaper.  Exact; the block's dual is recovered by a PSD completion of the
-        clique multipliers.
-
-    Examples
-    --------
-    >>> from advbound.functions.builders import or_function
-    >>> form = formulate_symmetric(or_function(3))
-    >>> s = form.sizes(); s["group_order"], s["weights"], s["densities"], s["representatives"]
-    (6, 3, 4, 1)
-    """
-    t0 = time.perf_counter()
-    from advbound.programs.solve import check_solvable
-
-    check_solvable(f, bound)
-    dom = domain(f)
-    G = automorphism_group(f) if group is None else group
-    g = G.function
-    if g is not f and (g.inputs != f.inputs or g.outputs != f.outputs or tuple(g.costs) != tuple(f.costs)):
-        raise InvalidFunctionError("the group given belongs to a different function (inputs, outputs or costs differ)")
-    rng = np.random.default_rng(seed)
-    out = np.asarray(dom.output_index)
-    diff = out[:, None] != out[None, :]
-    pair_orbit = orbits_of_pairs(G, symmetric=True, mask=diff)
-    K = int(pair_orbit.max()) + 1
-    pair_counts = np.bincount(pair_orbit[diff], minlength=K).astype(float)
-    input_orbit = orbits_of_inputs(G)
-    R = int(input_orbit.max()) + 1
-    input_counts = np.bincount(input_orbit, minlength=R).astype(float)
-    pos_orbit = position_orbits(G)
-    form = "bipartite" if len(f.labels) == 2 else "full"
-    # the lower LMI is implied for two outputs (conjugation by diag(I, -I)) and for W >= 0
-    sides = (1,) if (form == "bipartite" or bound == "positive") else (1, -1)
-    reps = []
-    blocks = []
-    for o in range(int(pos_orbit.max()) + 1):
-        j = int(np.flatnonzero(pos_orbit == o)[0])
-        if not (dom.symbols[:, j] != dom.symbols[0, j]).any():
-            continue  # dead position: c_j diag(ρ) ⪰ 0 is implied by ρ >= 0
-        reps.append(j)
-        H = stabilizer(G, j)
-        inc = {s: _lmi_incidence(dom, j, s, pair_orbit, input_orbit, K, R, f.costs[j]) for s in sides}
-        n = dom.size
-
-        def sample(rg, inc=inc, n=n):
-            pts = []
-            for _ in range(2):
-                v = rg.standard_normal(K + R)
-                for s in sides:
-                    pts.append(sp.csr_matrix((inc[s] @ v).reshape(n, n)))
-            return pts
-
-        basis = block_basis(H, sample, rng)
-        for Q, mult in basis:
-            kq = sp.kron(Q, Q, format="csc")  # (n², m²), column u*m + v
-            for s in sides:
-                coef = (kq.T @ inc[s]).tocsr()
-                coef.eliminate_zeros()
-                cl = _maybe_chordal(coef, Q.shape[1]) if chordal else None
-                blocks.append(LmiBlock(j, s, Q, mult, coef, cl))
-    build = time.perf_counter() - t0
-    log.info("symmetric formulation: group order %d, %d weights, %d densities, blocks %s (%.2fs)",
-             G.order, K, R, [b.size for b in blocks], build)
-    return SymmetricFormulation(f, dom, G, bound, form, input_orbit, pair_orbit, pair_counts, input_counts,
-                                pos_orbit, tuple(reps), tuple(blocks), build)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -754,8 +315,6 @@ def solve_symmetric(f: PartialFunction, bound: str = "general", solver: str = "S
     SolverError
         For an unsupported solver or an SCS crash.
     """
-    from advbound.evidence.verify import extract_gamma, verify_certificate
-
     name = str(solver).upper()
     if name not in ("SCS", "CLARABEL"):
         raise SolverError(f"solver {solver!r} is not supported by the symmetric method; use 'SCS' or 'CLARABEL'")
@@ -789,32 +348,61 @@ def solve_symmetric(f: PartialFunction, bound: str = "general", solver: str = "S
     with_dual = bool(with_dual) and (witness_limit is None or N * n * n <= witness_limit)
     dual = {}
     if with_dual:
-        off = cone["z"] + cone["l"]
-        ys = []
-        for blk, lay in zip(form.blocks, layout):
-            m = blk.size
-            if lay is None:
-                k = m * (m + 1) // 2
-                ys.append(_smat(y[off:off + k], m, name))
-                off += k
-                continue
-            # multipliers of the entry equalities B[u,v] - Σ_c Z_c[u,v] = 0 give the block's dual on
-            # the clique entries (Y[c, c] ⪰ 0 for every clique); complete it to a PSD matrix
-            start, keys = lay
-            ye = y[start:start + keys.size]
-            u, v = np.divmod(keys, m)
-            Y = np.zeros((m, m))
-            val = np.where(u == v, -ye, -ye / 2.0)
-            Y[u, v] = val
-            Y[v, u] = val
-            ys.append(_psd_completion(Y, blk.cliques))
-            off += sum(cq.size * (cq.size + 1) // 2 for cq in blk.cliques)
-        xp, xm = _dual_witness(form, ys)
+        xp, xm = _dual_witness(form, _block_multipliers(form, layout, y, cone, name))
         dual = dict(dual_t=float(y[0]), dual_plus=xp, dual_minus=xm)
     meta = {"description": f.description, "bound": bound, "method": "symmetric",
             "solver": {"name": name, "version": version, "tol": float(tol), "max_iters": max_iters,
                        "status": raw_status, "iterations": iters, "time": float(solve_time)},
             "group_order": int(form.group.order), "reduced_sizes": sizes, "objective": objective}
+    cert, rep = _verified_certificate(f, bound, W, rho, meta, dual, repair_tol)
+    st, lower, upper, msg = _verdict(st, rep, with_dual, tol)
+    log.info("solve_symmetric %s: %s lower=%s upper=%s", f.description or "function", st, lower, upper)
+    return SolveResult(message=msg, status=st, lower=lower, upper=upper, objective=objective,
+                       certificate=cert, verification=rep, **base)
+
+
+# ---------------------------------------------------------------------------------------------
+# The steps of solve_symmetric
+# ---------------------------------------------------------------------------------------------
+def _block_multipliers(form: SymmetricFormulation, layout: list, y: np.ndarray, cone: dict,
+                       solver: str) -> list[np.ndarray]:
+    """The solver's multiplier ``Y_b`` of every block, as a full symmetric matrix.
+
+    ``layout`` is the one :func:`_conic_data` returned; a chordal block's multiplier is completed
+    to a PSD matrix from its clique entries.
+    """
+    off = cone["z"] + cone["l"]
+    ys = []
+    for blk, lay in zip(form.blocks, layout):
+        m = blk.size
+        if lay is None:
+            k = m * (m + 1) // 2
+            ys.append(_smat(y[off:off + k], m, solver))
+            off += k
+            continue
+        # multipliers of the entry equalities B[u,v] - Σ_c Z_c[u,v] = 0 give the block's dual on
+        # the clique entries (Y[c, c] ⪰ 0 for every clique); complete it to a PSD matrix
+        start, keys = lay
+        ye = y[start:start + keys.size]
+        u, v = np.divmod(keys, m)
+        Y = np.zeros((m, m))
+        val = np.where(u == v, -ye, -ye / 2.0)
+        Y[u, v] = val
+        Y[v, u] = val
+        ys.append(_psd_completion(Y, blk.cliques))
+        off += sum(cq.size * (cq.size + 1) // 2 for cq in blk.cliques)
+    return ys
+
+
+def _verified_certificate(f: PartialFunction, bound: str, W: np.ndarray, rho: np.ndarray, meta: dict, dual: dict,
+                          repair_tol: float):
+    """The certificate of the expanded point and :func:`verify_certificate`'s report on it.
+
+    Γ is extracted from ``(W, ρ)`` at each support threshold and the one with the best verified
+    lower bound is kept; the certificate records the verified bounds as its claims.
+    """
+    from advbound.evidence.verify import extract_gamma, verify_certificate
+
     best = None
     for thr in _SUPPORT_THRESHOLDS:
         gamma = extract_gamma(W, rho, threshold=thr)
@@ -825,6 +413,11 @@ def solve_symmetric(f: PartialFunction, bound: str = "general", solver: str = "S
     cert = Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), best[0], metadata=meta, **dual)
     rep = verify_certificate(cert, bound=bound, repair_tol=repair_tol)
     cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))
+    return cert, rep
+
+
+def _verdict(st: str, rep, with_dual: bool, tol: float):
+    """``(status, lower, upper, message)`` from the solver's status and the verification report."""
     lower, upper = rep.lower, rep.upper
     if not rep.passed:
         st = _status.UNVERIFIED
@@ -832,11 +425,10 @@ def solve_symmetric(f: PartialFunction, bound: str = "general", solver: str = "S
         msg = f"check(s) {', '.join(rep.failed_checks())} failed: {rep.message}"
     elif not with_dual:
         msg = "solved; lower bound verified (no dual witness built: domain too large or not requested)"
-    elif st == _status.OPTIMAL and upper is not None and (upper - lower) / max(abs(upper), 1e-300) > max(1e-3, 1e3 * tol):
+    elif st == _status.OPTIMAL and upper is not None \
+            and (upper - lower) / max(abs(upper), 1e-300) > max(1e-3, 1e3 * tol):
         st = _status.INACCURATE
         msg = f"solver claimed optimality but the verified relative gap is {(upper - lower) / upper:.2g}"
     else:
         msg = _status.MESSAGES[st]
-    log.info("solve_symmetric %s: %s lower=%s upper=%s", f.description or "function", st, lower, upper)
-    return SolveResult(message=msg, status=st, lower=lower, upper=upper, objective=objective,
-                       certificate=cert, verification=rep, **base)
+    return st, lower, upper, msg

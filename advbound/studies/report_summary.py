@@ -1,0 +1,140 @@
+"""The summary text of a report (``summary.md``): what was computed, what the numbers mean, the fits.
+
+This module owns :func:`_summary`, which writes the Markdown of ``summary.md`` from what
+:func:`advbound.studies.report.write_report` read and wrote, and the fixed paragraphs on what
+the lower and upper bounds and the exact points prove.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import os
+
+from advbound.studies.report_series import FIT_MAX_GAP
+from advbound.studies.report_tables import _f, _g, markdown_exact_table
+
+__all__ = ["SUMMARY_LIST_LIMIT"]
+
+_EXACT_PROVES = """\
+Exact points solve the t-query semidefinite program of "Quantum query complexity and semi-definite
+programming" (2003) for the same function (see `docs/exact.md`). **success** is `[p, u]`: `p` is
+achieved by an explicit algorithm rebuilt from the solver's point (verified with numpy), `u` is a
+verified upper bound on every t-query algorithm. **least t** is the least t whose verified
+achievable success is at least 1 − ε − decision tolerance (`> N`: none up to `max_queries`).
+The **check** evaluates t ≥ ((1 − 2·sqrt(ε(1−ε)))/2)·L with L the verified ADV± lower bound
+("Negative weights make adversaries stronger", 2007, arXiv:quant-ph/0611054): for least-t
+columns with the target ε, for fixed-t columns with ε = 1 − p, the largest error consistent with
+success p (only when p > 1/2). A `fail` would mean an inconsistency between the two computations.
+"""
+
+
+_PROVES = """\
+## What these numbers mean
+
+* Each **lower** value is ‖Γ‖ / max_j ‖Γ∘Δ_j‖/c_j recomputed from the stored adversary matrix Γ,
+  independently of the solver. It is a lower bound on ADV± (or on ADV for the positive-weight bound)
+  of *that finite function*, hence, up to the constant of the adversary theorem, a lower bound on its
+  bounded-error quantum query complexity: Q_ε(f) ≥ ((1 − 2√(ε(1−ε)))/2)·ADV±(f) ("Negative weights
+  make adversaries stronger", 2007, arXiv:quant-ph/0611054), and ADV± is tight up to a constant
+  factor ("Quantum query complexity of state conversion", 2011, arXiv:1011.3020).
+* Each **upper** value is a verified dual witness objective: ADV±/ADV of that finite function is
+  at most this number. The shaded band in the figures is the interval [lower, upper].
+* Nothing here is a statement about the growth variable beyond the computed range. A growth-law **fit is evidence about
+  growth, not a proof**: finite-size effects and lower-order terms can imitate or hide a slowly
+  varying factor such as √(log T).
+"""
+
+
+#: At most this many entries per list of invalid or left-out rows in ``summary.md``.
+SUMMARY_LIST_LIMIT = 20
+
+
+def _listing(w, items) -> None:
+    for line in items[:SUMMARY_LIST_LIMIT]:
+        w(f"* {line}\n")
+    if len(items) > SUMMARY_LIST_LIMIT:
+        w(f"* ... and {len(items) - SUMMARY_LIST_LIMIT} more\n")
+    w("\n")
+
+
+def _summary(meta, name, rows, series, fits, growth, generated, store_path, figures, tables, data, prov,
+             out, exact=None, invalid=(), left_out=(), certs=()) -> str:
+    b = io.StringIO()
+    w = b.write
+    w(f"# Study `{name}`\n\n")
+    if meta.get("description"):
+        w(f"{meta['description']}\n\n")
+    w(f"Generated {generated} from the store `{store_path}` (the report reads only the store).\n\n")
+    w("## What was computed\n\n")
+    settings = meta.get("settings") or {}
+    if meta.get("instance"):
+        inst = {k: v for k, v in meta["instance"].items() if k != "description"}
+        w("Instance template and grid:\n\n```json\n"
+          + json.dumps({"instance": inst, "grid": meta.get("grid")}, sort_keys=True) + "\n```\n\n")
+    w(f"Bounds: {', '.join(meta.get('bounds') or sorted({r.bound for r in rows if r.bound}))}; "
+      f"method {settings.get('method', '?')}, solver {settings.get('solver', '?')}, "
+      f"tol {settings.get('tol', '?')}, max_iters {settings.get('max_iters')}. "
+      f"Growth variable `{growth}`" + (f", series by `{meta['series']}`" if meta.get("series") else "") + ".\n\n")
+    ok = [r for r in rows if r.success]
+    bad = [r for r in rows if r.failed and not r.invalid]
+    n_invalid = sum(1 for r in rows if r.invalid)
+    w(f"{len(rows)} stored points: {len(ok)} with verified bounds, {len(bad)} failed or unverified"
+      + (f", {n_invalid} with invalid input" if n_invalid else "") + ".\n\n")
+    if bad:
+        w("Failed or unverified points (their numbers are not used):\n\n")
+        for r in bad:
+            w(f"* `{json.dumps(r.params, sort_keys=True)}` {r.bound}: {r.status} — {r.error or r.message}\n")
+        w("\n")
+    if invalid:
+        w("Invalid points (the instance cannot be built there; fix the instance, then rerun the study):\n\n")
+        _listing(w, [f"`{json.dumps(p, sort_keys=True)}` ({', '.join(what)}): {msg}" for p, msg, what in invalid])
+    other = [m for m in left_out if m not in certs and "certificate that is missing" not in m]
+    if other:
+        w("Stored rows left out because they are not as advbound writes them (edited by hand?):\n\n")
+        _listing(w, [f"`{m}`" for m in other])
+    if certs:
+        w("Rows whose certificate cannot be found from the store's folder (their numbers were verified "
+          "when written, but cannot be rechecked from here):\n\n")
+        _listing(w, [f"`{m}`" for m in certs])
+    for s in series:
+        w(f"### {s.label}\n\n| {growth} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|\n")
+        for t, lo, up, d in zip(s.T, s.lower, s.upper, s.domain_size):
+            gap = None if up is None else up - lo
+            w(f"| {t:g} | {d} | {_f(lo)} | {_f(up)} | {_g(gap, 2)} |\n")
+        w("\n")
+    w(_PROVES + "\n")
+    if exact is not None:
+        w("## Exact t-query points next to ADV±\n\n")
+        ex = meta.get("exact") or {}
+        if ex:
+            w(f"Exact settings: solver {ex.get('solver')}, tol {ex.get('tol')}, symmetry {ex.get('symmetry')}, "
+              f"decision tolerance {ex.get('decision_tol')}.\n\n")
+        w(markdown_exact_table(exact[0], exact[1], meta) + "\n")
+        checks = [e.check for p in exact[1] for e in p.entries if e is not None]
+        w(f"Checks: {checks.count('pass')} pass, {checks.count('fail')} fail, {checks.count('n/a')} n/a.\n\n")
+        w(_EXACT_PROVES + "\n")
+    w("## Growth-law fits (verified lower bounds)\n\n")
+    w("Least squares with relative weights; parameters ± standard errors from the Jacobian; "
+      "bracketed intervals are seeded residual-bootstrap 95% intervals. Ranked by the information "
+      "criterion named below; Akaike weights. Points whose verified relative gap exceeds "
+      f"{FIT_MAX_GAP:g} stay in the tables above but are left out of the fits.\n\n")
+    for label, cmp in fits.items():
+        w(f"### {label}\n\n")
+        if isinstance(cmp, str):
+            w(cmp + "\n\n")
+            continue
+        w(f"| model | parameters | {cmp.criterion} | BIC | weight |\n|---|---|---:|---:|---:|\n")
+        for fr in cmp.fits:
+            ps = "; ".join(f"{k} = {_g(v, 4)} ± {_g(fr.stderr.get(k), 2)}"
+                           + (f" [{_g(fr.intervals[k][0], 4)}, {_g(fr.intervals[k][1], 4)}]"
+                              if k in fr.intervals else "") for k, v in fr.params.items())
+            crit = fr.aicc if cmp.criterion == "AICc" else fr.aic
+            w(f"| {fr.model} | {ps} | {_g(crit, 4)} | {_g(fr.bic, 4)} | {cmp.weights.get(fr.model, 0):.3f} |\n")
+        w(f"\n{cmp.verdict}\n\n")
+    w("## Files\n\n")
+    for p in [*figures, *tables, *data, prov]:
+        w(f"* `{os.path.relpath(p, out)}`\n")
+    w("\nProvenance (versions, solver settings, instance hashes, certificate paths) is in "
+      "`provenance.json`.\n")
+    return b.getvalue()

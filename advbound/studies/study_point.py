@@ -1,0 +1,154 @@
+"""One point of a study: its computation in a worker, and its stored row (certificate first).
+
+This module owns :func:`solve_point`, the per-point function a worker runs (it never raises
+for a failing computation: the failure is data), and the turning of its outcome into a
+:class:`~advbound.studies.store.StoredRow` in the calling process: the certificate file is
+written under a temporary name and renamed into place before the row is committed, and a
+success whose verified lower bound exceeds its verified upper bound is stored as unverified.
+
+>>> _safe("T=5 rows=3 exact t=2")
+'T=5_rows=3_exact_t=2'
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import time
+import traceback
+
+from advbound import status as _status
+from advbound.errors import AdvboundError
+from advbound.studies.store import (BOUND_SLACK, ERROR_STATUS, LeaseHolder, Store, StoredRow, make_row,
+                                    package_versions)
+from advbound.studies.study_spec import EXACT_KIND, Point, StudySpec, _one_line, solver_settings
+
+__all__ = ["solve_point"]
+
+
+def solve_point(task: dict) -> dict:
+    """Compute one point (runs in a worker; never raises for a failing computation).
+
+    ``task`` has ``instance`` (an InstanceSpec), ``params``, ``bound`` and ``settings``
+    (:func:`solver_settings`).  Returns a dict with ``ok``; on success ``result``
+    (``SolveResult.to_dict()``), ``certificate`` (or ``None``); on failure ``error``, and
+    ``invalid = True`` when building the instance raised an
+    :class:`~advbound.errors.AdvboundError` (the input is wrong, not the solver); always
+    ``time_total`` (s) and ``versions``.  A task with ``kind == "exact"`` carries the
+    request (one entry of :func:`exact_settings`) as ``settings`` and returns ``exact``
+    (``ExactResult.to_dict()``) instead of ``result``.
+    """
+    t0 = time.perf_counter()
+    try:
+        out = _compute(task)
+    except Exception as err:  # a failing point is data, recorded by the parent
+        tb = traceback.format_exception_only(type(err), err)[-1].strip()
+        out = {"ok": False, "error": tb}
+    out["time_total"] = time.perf_counter() - t0
+    out["versions"] = package_versions()
+    return out
+
+
+def _compute(task: dict) -> dict:
+    from advbound.functions.instance import build_instance
+    s = task["settings"]
+    try:
+        f = build_instance(task["instance"], task["params"])
+    except AdvboundError as err:
+        return {"ok": False, "invalid": True, "error": _one_line(err)}
+    if task.get("kind") == EXACT_KIND:
+        return {"ok": True, "exact": _solve_exact(f, s).to_dict()}
+    from advbound.programs.solve import solve
+    res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
+                method=s["method"], **s["options"])
+    return {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
+
+
+def _solve_exact(f, s: dict):
+    from advbound.programs.exact import exact_success, least_queries
+    kw = dict(solver=s["solver"], tol=s["tol"], use_symmetry=s["symmetry"])
+    if s.get("queries") is not None:
+        return exact_success(f, int(s["queries"]), **kw)
+    return least_queries(f, s["error"], max_queries=s.get("max_queries"), decision_tol=s["decision_tol"], **kw)
+
+
+def _safe(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_.=-]+", "_", text)[:80]
+
+
+def _common(study: StudySpec, point: Point, out: dict) -> dict:
+    exact = point.kind == EXACT_KIND
+    return dict(kind=point.kind, spec_key=point.spec_key, spec=point.spec, params=point.params,
+                bound=None if exact else point.bound, study=study.name,
+                solver=dict(point.request or {}) if exact else solver_settings(study),
+                versions=out.get("versions", {}), time_total=out.get("time_total"))
+
+
+def _failed_row(point: Point, out: dict, common: dict) -> StoredRow:
+    if out.get("invalid"):
+        return make_row(point.run_key, status=_status.INVALID, message=str(out.get("error")), **common)
+    return make_row(point.run_key, status=ERROR_STATUS, message="the computation raised an exception",
+                    error=str(out.get("error", "unknown error")), **common)
+
+
+def _record(store: Store, study: StudySpec, point: Point, out: dict, holder: LeaseHolder | None = None
+            ) -> StoredRow:
+    """Write the certificate (temp file, then rename) and then the row (one transaction, which also
+    releases ``holder``'s lease on the point)."""
+    common = _common(study, point, out)
+    if not out.get("ok"):
+        row = _failed_row(point, out, common)
+    elif point.kind == EXACT_KIND:
+        row = _exact_row(point, out["exact"], common)
+    else:
+        row = _adversary_row(store, study, point, out, common)
+    store.put(row, release=holder)
+    return row
+
+
+def _consistent(status: str, message, lower, upper):
+    """A success status whose verified lower bound exceeds its verified upper bound is a contradiction."""
+    if status in _status.SUCCESS and lower is not None and upper is not None and \
+            lower > upper + BOUND_SLACK * max(1.0, abs(upper)):
+        return _status.UNVERIFIED, f"verified lower {lower!r} exceeds verified upper {upper!r}"
+    return status, message
+
+
+def _adversary_row(store: Store, study: StudySpec, point: Point, out: dict, common: dict) -> StoredRow:
+    from advbound.evidence.orbitcert import save_any_certificate
+    res = out["result"]
+    cert = out.get("certificate")
+    cert_path = None
+    if cert is not None:
+        final = os.path.join(study.certificates, f"{_safe(point.label)}-{point.run_key[:12]}.npz")
+        tmp = os.path.join(study.certificates, f".{point.run_key[:12]}.{os.getpid()}.tmp")
+        try:
+            os.makedirs(study.certificates, exist_ok=True)
+            save_any_certificate(cert, tmp)
+            os.replace(tmp, final)
+        except OSError as err:
+            raise AdvboundError(f"{final}: cannot write the certificate ({err.strerror or err})") from None
+        cert_path = os.path.relpath(os.path.abspath(final), store.folder)
+    solver = res.get("solver", {})
+    values = {"relative_gap": res.get("relative_gap"), "success": res.get("success"),
+              "solver_stats": solver}
+    status, message = _consistent(res["status"], res.get("message"), _num(res.get("lower")), _num(res.get("upper")))
+    return make_row(point.run_key, status=status, message=message, lower=res.get("lower"),
+                    upper=res.get("upper"), objective=res.get("objective"), domain_size=res.get("domain_size"),
+                    values=values, time_solve=solver.get("time"), certificate=cert_path, **common)
+
+
+def _exact_row(point: Point, d: dict, common: dict) -> StoredRow:
+    """The row of an exact point: lower/upper = verified achievable success / verified upper bound."""
+    status, message = _consistent(d["status"], d.get("message"), _num(d.get("success_probability")),
+                                  _num(d.get("upper_bound")))
+    return make_row(point.run_key, status=status, message=message, lower=d.get("success_probability"),
+                    upper=d.get("upper_bound"), objective=d.get("objective"), domain_size=d.get("domain_size"),
+                    values=d, time_solve=(d.get("solver") or {}).get("time"), **common)
+
+
+def _num(v):
+    try:
+        return None if v is None else float(v)
+    except (TypeError, ValueError):
+        return None

@@ -1,0 +1,158 @@
+"""Orbit certificates: the acceptance rule and forged files, in advbound and in the standalone re-checker.
+
+The base file is written by hand with ``np.savez``: OR_3 as three rows of one bit, with the star Γ
+(value 1 between 000 and each input of one 1).  ``ADV±(OR_3) = √3`` and the star reaches it
+("Quantum lower bounds by quantum arguments", 2000, arXiv:quant-ph/0002066); with the test vector
+ρ = 1/2 on 000 and 1/6 on each input of one 1 (the star's top eigenvector, squared) the Rayleigh
+quotient is exactly √3: ``2·3·1·√(1/2·1/6) / (1/2 + 3/6) = √3``; each Γ∘Δ_j is one edge, norm 1.
+"""
+
+import json
+import math
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from advbound.cli import main
+from advbound.errors import CertificateError
+from advbound.evidence.orbitcert import load_any_certificate
+from advbound.evidence.orbitcheck import verify_orbit_certificate
+
+ROOT = Path(__file__).resolve().parents[1]
+RECHECK = ROOT / "tools" / "recheck_certificate.py"
+FORMAT = "advbound-orbit-certificate/1"
+
+
+def base(**changes):
+    """The OR_3 star as orbit-certificate arrays; a change of ``None`` removes the array."""
+    a = {"format": np.array(FORMAT), "alphabet": np.array(["0", "1"]), "letters": np.array(["0", "1"]),
+         "contents": np.array([[0, 0, 0], [0, 0, 1], [0, 1, 1], [1, 1, 1]], dtype=np.int64),
+         "outputs": np.array(["0", "1", "1", "1"]), "costs": np.ones(1),
+         "pair_keys": np.array([[[0, 0], [0, 0], [0, 1]]], dtype=np.int64), "gamma": np.ones(1),
+         "rho": np.array([0.5, 1 / 6, 0.0, 0.0]), "metadata": np.array(json.dumps({"bound": "general"}))}
+    for k, v in changes.items():
+        if v is None:
+            a.pop(k, None)
+        else:
+            a[k] = v
+    return a
+
+
+def write(path, arrays):
+    np.savez(path, **arrays)
+    return path
+
+
+def recheck(path):
+    return subprocess.run([sys.executable, str(RECHECK), str(path)], capture_output=True, text=True, timeout=300)
+
+
+def test_hand_made_star_verifies_to_sqrt3(tmp_path, capsys):
+    """advbound and the re-checker both verify √3 for the OR_3 star (source in the module docstring)."""
+    path = write(tmp_path / "star.npz", base())
+    rep = verify_orbit_certificate(load_any_certificate(path))
+    assert rep.passed, rep.message
+    assert rep.lower == pytest.approx(math.sqrt(3), rel=1e-12) and rep.dense_lower == pytest.approx(math.sqrt(3))
+    assert main(["verify", str(path)]) == 0
+    assert "verdict: VERIFIED" in capsys.readouterr().out
+    out = recheck(path)
+    assert out.returncode == 0, out.stdout + out.stderr
+    lower = float(next(l for l in out.stdout.splitlines() if l.startswith("lower_float")).split()[1])
+    assert math.sqrt(3) * (1 - 1e-5) <= lower <= math.sqrt(3)
+
+
+KEYS_EQUAL_OUTPUTS = np.array([[[0, 0], [0, 1], [1, 1]]], dtype=np.int64)       # 001 with 011: both output 1
+KEYS_REVERSED = np.array([[[0, 0], [0, 0], [1, 0]]], dtype=np.int64)            # from output 1 to output 0
+FORGERIES = {
+    "duplicate content": (dict(contents=np.array([[0, 0, 0], [0, 0, 0], [0, 1, 1], [1, 1, 1]])), "same multiset"),
+    "unsorted content": (dict(contents=np.array([[0, 0, 0], [1, 0, 0], [0, 1, 1], [1, 1, 1]])), "not sorted"),
+    "letter out of range": (dict(contents=np.array([[0, 0, 0], [0, 0, 2], [0, 1, 1], [1, 1, 1]])), "outside"),
+    "letters not distinct": (dict(letters=np.array(["0", "0"])), "distinct"),
+    "letter outside alphabet": (dict(letters=np.array(["0", "2"])), "alphabet"),
+    "letters of two lengths": (dict(letters=np.array(["0", "11"])), "length"),
+    "outputs short": (dict(outputs=np.array(["0", "1", "1"])), "output"),
+    "constant outputs": (dict(outputs=np.array(["1", "1", "1", "1"])), "same output"),
+    "zero cost": (dict(costs=np.zeros(1)), "cost"),
+    "two costs for one position": (dict(costs=np.ones(2)), "length"),
+    "unsorted pair orbit": (dict(pair_keys=np.array([[[0, 1], [0, 0], [0, 0]]])), "sorted"),
+    "pair orbit with equal outputs": (dict(pair_keys=KEYS_EQUAL_OUTPUTS), "output"),
+    "pair orbit from the larger label": (dict(pair_keys=KEYS_REVERSED), "label"),
+    "pair orbit twice": (dict(pair_keys=np.array([[[0, 0], [0, 0], [0, 1]]] * 2), gamma=np.ones(2)), "orbit"),
+    "pair orbit outside the contents": (dict(contents=np.array([[0, 0, 0], [0, 0, 1]]), outputs=np.array(["0", "1"]),
+                                             rho=np.array([0.5, 1 / 6]),
+                                             pair_keys=np.array([[[0, 0], [0, 1], [0, 1]]])), "content"),
+    "gamma NaN": (dict(gamma=np.array([np.nan])), "finite"),
+    "gamma per orbit missing": (dict(gamma=np.ones(2)), "gamma"),
+    "negative gamma, positive bound": (dict(gamma=-np.ones(1), metadata=np.array(json.dumps({"bound": "positive"}))),
+                                       "gamma"),
+    "negative rho": (dict(rho=np.array([0.5, -1.0, 0.0, 0.0])), "rho"),
+    "zero rho": (dict(rho=np.zeros(4)), "rho"),
+    "dual sizes without values": (dict(dual_sizes=np.array([2])), "dual"),
+    "dual values of the wrong length": (dict(dual_sizes=np.array([2]), dual_values=np.ones(3)), "dual"),
+    "dual NaN": (dict(dual_sizes=np.array([1]), dual_values=np.array([np.nan])), "dual"),
+    "unknown array": (dict(extra=np.ones(1)), "unknown array"),
+    "missing gamma": (dict(gamma=None), "gamma"),
+    "pickled array": (dict(letters=np.array(["0", "1"], dtype=object)), "pickle"),
+}
+
+
+@pytest.mark.parametrize("name", sorted(FORGERIES))
+def test_forged_file_is_refused_by_both_checkers(name, tmp_path, capsys):
+    """Each rule of the orbit acceptance rule: advbound exits 2 with one line, the re-checker exits 2."""
+    changes, word = FORGERIES[name]
+    path = tmp_path / "forged.npz"
+    write(path, base(**changes))
+    with pytest.raises(CertificateError) as err:
+        load_any_certificate(path)
+    assert word.lower() in str(err.value).lower(), str(err.value)
+    assert main(["verify", str(path)]) == 2
+    captured = capsys.readouterr()
+    assert "VERIFIED" not in captured.out and len(captured.err.strip().splitlines()) == 1
+    out = recheck(path)
+    assert out.returncode == 2, (name, out.stdout, out.stderr)
+    assert "VERIFIED" not in out.stdout
+
+
+@pytest.mark.parametrize("claims", [{"claimed_lower": 2.0}, {"claimed_upper": 1.5}])
+def test_inflated_claims_are_not_verified(claims, tmp_path, capsys):
+    """A claimed lower bound above √3, or an upper bound below the dual's, fails in both checkers (exit 1)."""
+    meta = dict(bound="general", **claims)
+    arrays = base(metadata=np.array(json.dumps(meta)))
+    if "claimed_upper" in claims:   # a dual is needed for an upper bound: solve for it below
+        pytest.importorskip("clarabel")
+        from advbound.programs.rowsym import formulate_rows, solve_reduced
+        prog = formulate_rows(load_any_certificate(write(tmp_path / "b.npz", base())).family())
+        pt = solve_reduced(prog)
+        arrays.update(dual_sizes=np.array([z.shape[0] for z in pt.duals]),
+                      dual_values=np.concatenate([z.ravel() for z in pt.duals]))
+    path = write(tmp_path / "claim.npz", arrays)
+    assert main(["verify", str(path)]) == 1
+    assert "NOT VERIFIED" in capsys.readouterr().out
+    if "claimed_lower" in claims:
+        out = recheck(path)
+        assert out.returncode == 1 and "NOT VERIFIED" in out.stdout
+
+
+def test_solved_certificate_round_trip_and_tampering(tmp_path, capsys):
+    """solve --save-certificate writes an orbit file that both checkers verify; scaling one Γ orbit breaks its claim."""
+    inst = ROOT / "instances" / "or3_sum_T.toml"
+    path = tmp_path / "or3.npz"
+    assert main(["solve", str(inst), "--set", "T=6", "--save-certificate", str(path)]) == 0
+    capsys.readouterr()
+    z = dict(np.load(path))
+    assert str(z["format"]) == FORMAT
+    assert main(["verify", str(path), "--against", str(inst), "--set", "T=6"]) == 0
+    assert "same function" in capsys.readouterr().out
+    assert main(["verify", str(path), "--against", str(inst), "--set", "T=7"]) == 1
+    capsys.readouterr()
+    assert recheck(path).returncode == 0
+    k = int(np.argmax(z["gamma"]))
+    z["gamma"] = z["gamma"].copy()
+    z["gamma"][k] *= 1.5
+    tampered = write(tmp_path / "tampered.npz", z)
+    assert main(["verify", str(tampered)]) == 1
+    assert "claimed_lower" in capsys.readouterr().out
+    assert recheck(tampered).returncode == 1

@@ -170,3 +170,19 @@ def test_non_finite_values_refused(T, y, where):
         compare_models(T, y, bootstrap=0)
     with pytest.raises(AdvboundError, match=where):
         fit_model(T, y, "sqrt", bootstrap=0)
+
+
+def test_too_few_points_for_a_law_is_never_ranked():
+    """With 3 points a 2-parameter law leaves 1 degree of freedom: fitted, shown, never ranked or weighted
+    (fewer than 2 degrees of freedom; a 3-parameter law would pass through every point)."""
+    import numpy as np
+    from advbound.studies.fit import compare_models
+    T = np.array([6.0, 8.0, 10.0])
+    cmp = compare_models(T, 1.1 * np.sqrt(T), laws=("sqrt", "sqrt_log", "power"), offsets=(False, True),
+                         bootstrap=0)
+    assert cmp.too_few("power") and cmp.too_few("sqrt+offset") and not cmp.too_few("sqrt")
+    assert cmp.weights["power"] is None and "power" not in cmp.to_dict()["ranking"]
+    assert cmp.best is not None and cmp.best.model in ("sqrt", "sqrt_log")
+    assert "Too few points for" in cmp.verdict
+    two = compare_models(T[:2], 1.1 * np.sqrt(T[:2]), laws=("sqrt", "sqrt_log"), offsets=(False,), bootstrap=0)
+    assert two.best is None and "Best by" not in two.verdict

@@ -61,7 +61,8 @@ def run(args) -> int:
         for fr in cmp.fits:
             ps = ", ".join(f"{k}={_g(v)}±{_g(fr.stderr.get(k), 2)}" for k, v in fr.params.items())
             crit = fr.aicc if cmp.criterion == "AICc" else fr.aic
-            print(f"   {fr.model:<18} {ps:<46} {_g(crit):>9} {cmp.weights.get(fr.model, 0):>7.3f}")
+            weight = "too few points" if cmp.too_few(fr.model) else f"{cmp.weights.get(fr.model, 0):.3f}"
+            print(f"   {fr.model:<18} {ps:<46} {'--' if cmp.too_few(fr.model) else _g(crit):>9} {weight:>7}")
         print(f"   preference: {cmp.preference}")
         print(f"   {cmp.verdict}")
     return 0

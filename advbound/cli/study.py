@@ -109,8 +109,9 @@ def _print_preferences(files) -> None:
         if isinstance(d, str):
             print(f"  fit {label}: {d}")
         else:
-            print(f"  fit {label}: {names.get(d['preference'], d['preference'])} (best by {d['criterion']}: "
-                  f"{d['ranking'][0]})")
+            best = (f" (best by {d['criterion']}: {d['ranking'][0]})" if d.get("ranking") else
+                    " (too few points to rank any law)")
+            print(f"  fit {label}: {names.get(d['preference'], d['preference'])}{best}")
 
 
 def _print_exact(files) -> None:

@@ -19,7 +19,7 @@ from typing import Any, Mapping, Sequence
 
 from advbound.errors import InvalidInstanceError
 
-__all__ = ["evaluate", "parse_params", "MAX_EXPRESSION_CHARS", "MAX_EXPRESSION_DEPTH", "MAX_INT_BITS"]
+__all__ = ["evaluate", "condition", "parse_params", "MAX_EXPRESSION_CHARS", "MAX_EXPRESSION_DEPTH", "MAX_INT_BITS"]
 
 #: Limits of the expression language: longer, deeper or larger is refused with one line.
 MAX_EXPRESSION_CHARS = 1000
@@ -88,6 +88,47 @@ def _power(a, b, where: str, expr):
     if isinstance(v, complex):
         raise InvalidInstanceError(f"{where}: power {_short(a)} ** {_short(b)} in {_short(expr)} is not a real number")
     return v
+
+
+_COMPARE = {ast.Lt: lambda a, b: a < b, ast.LtE: lambda a, b: a <= b, ast.Gt: lambda a, b: a > b,
+            ast.GtE: lambda a, b: a >= b, ast.Eq: lambda a, b: a == b, ast.NotEq: lambda a, b: a != b}
+
+
+def condition(expr: Any, params: Mapping[str, float], where: str = "condition") -> bool:
+    """Evaluate a condition: comparisons of expressions (``< <= > >= == !=``, chained), ``and``, ``or``, ``not``.
+
+    Each side of a comparison is an expression of :func:`evaluate`, with its limits.
+
+    >>> condition("rows <= T / 2 + 1 and T >= 6", {"rows": 4, "T": 6})
+    True
+    >>> condition("rows + 1", {"rows": 2}, "f.toml: [grid] where")
+    Traceback (most recent call last):
+    ...
+    advbound.errors.InvalidInstanceError: f.toml: [grid] where: 'rows + 1' is not a condition (write a comparison such as 'rows <= T / 2')
+    """
+    if not isinstance(expr, str) or len(expr) > MAX_EXPRESSION_CHARS:
+        raise InvalidInstanceError(f"{where}: expected a condition string of at most {MAX_EXPRESSION_CHARS} "
+                                   f"characters, got {_short(expr)}")
+    try:
+        tree = ast.parse(expr, mode="eval").body
+    except SyntaxError:
+        raise InvalidInstanceError(f"{where}: {_short(expr)} is not a valid condition") from None
+
+    def walk(node, depth=0):
+        if depth > MAX_EXPRESSION_DEPTH:
+            raise InvalidInstanceError(f"{where}: {_short(expr)} is nested too deeply")
+        if isinstance(node, ast.BoolOp):
+            values = [walk(v, depth + 1) for v in node.values]
+            return all(values) if isinstance(node.op, ast.And) else any(values)
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.Not):
+            return not walk(node.operand, depth + 1)
+        if isinstance(node, ast.Compare) and all(type(op) in _COMPARE for op in node.ops):
+            sides = [evaluate(ast.unparse(x), params, where) for x in [node.left, *node.comparators]]
+            return all(_COMPARE[type(op)](a, b) for op, a, b in zip(node.ops, sides, sides[1:]))
+        raise InvalidInstanceError(f"{where}: {_short(expr)} is not a condition (write a comparison such as "
+                                   f"'rows <= T / 2')")
+
+    return bool(walk(tree))
 
 
 def evaluate(expr: Any, params: Mapping[str, float], where: str = "expression") -> int | float:

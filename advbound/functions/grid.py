@@ -2,7 +2,7 @@
 
 This module owns reading the values of each ``[grid]`` key (a number, a list, or a
 ``{from, to, step}`` range), the limits on them, the grid points (the cartesian product of
-the values, walked lazily by :func:`iter_grid_points`), how a point is named in messages
+the values, filtered by the optional ``where`` condition, walked lazily by :func:`iter_grid_points`), how a point is named in messages
 (:func:`point_label`) and the check of the parameters given for one point.
 
 >>> point_label({"T": 4})
@@ -16,7 +16,7 @@ import math
 from typing import TYPE_CHECKING, Mapping
 
 from advbound.errors import InvalidInstanceError
-from advbound.functions.expressions import _short, evaluate
+from advbound.functions.expressions import _short, condition, evaluate
 
 if TYPE_CHECKING:
     from advbound.functions.instance import InstanceSpec
@@ -74,15 +74,22 @@ _MAX_GRID_VALUES = 100_000
 
 
 def grid_size(spec: InstanceSpec) -> int:
-    """Number of grid points (the product of the value counts; 1 without a grid), without listing them."""
+    """The product of the value counts (1 without a grid), without listing them: the number of grid
+    points, or an upper bound on it when ``[grid] where`` leaves some out."""
     return math.prod(len(v) for v in spec.grid.values())
 
 
 def iter_grid_points(spec: InstanceSpec):
-    """The grid points one at a time, in :func:`grid_points` order, without building the list."""
+    """The grid points one at a time, in :func:`grid_points` order, without building the list.
+
+    With ``[grid] where`` only the points of the product that meet the condition are grid points.
+    """
     names = list(spec.grid)
+    where = getattr(spec, "where", None)
     for combo in itertools.product(*(spec.grid[k] for k in names)):
-        yield dict(zip(names, combo))
+        point = dict(zip(names, combo))
+        if where is None or condition(where, point, f"{spec.path}: [grid] where (at {point_label(point)})"):
+            yield point
 
 
 def grid_points(spec: InstanceSpec, *, max_points: int = MAX_GRID_POINTS) -> list[dict]:

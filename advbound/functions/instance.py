@@ -128,6 +128,9 @@ class InstanceSpec:
         Every other top-level table (``[solve]``, ``[report]``, ...), untouched.
     base_dir : str
         Directory that relative table paths are resolved against.
+    where : str or None
+        ``[grid] where``: a condition on the parameters (``"rows <= T / 2 + 2"``); only the points of
+        the product that meet it are grid points.
     """
 
     name: str
@@ -138,6 +141,7 @@ class InstanceSpec:
     study: dict
     tables: dict
     base_dir: str = "."
+    where: str | None = None
 
     @property
     def parameters(self) -> tuple[str, ...]:
@@ -203,12 +207,16 @@ def parse_instance(text: str, source: str = "<string>", base_dir: str = ".", *,
     description = inst.get("description", "")
     if not isinstance(description, str):
         raise InvalidInstanceError(f"{source}: [instance] description: must be a string")
+    grid_raw = dict(grid_raw)
+    where = grid_raw.pop("where", None)
+    if where is not None and not isinstance(where, str):
+        raise InvalidInstanceError(f"{source}: [grid] where: must be a condition string such as 'rows <= T / 2'")
     for key in grid_raw:
         if not key.isidentifier() or key in _FUNCS:
             raise InvalidInstanceError(f"{source}: [grid] {_name(key)}: not usable as a parameter name")
     grid = {key: _grid_values(value, f"{source}: [grid] {key}") for key, value in grid_raw.items()}
     spec = InstanceSpec(name=name, path=source, description=description, instance=inst, grid=grid,
-                        study=study, tables=tables, base_dir=base_dir)
+                        study=study, tables=tables, base_dir=base_dir, where=where)
     count = grid_size(spec)
     if count > max_points:
         sizes = " x ".join(f"{k}: {len(v)}" for k, v in grid.items())

@@ -416,7 +416,9 @@ class Comparison:
     criterion : str
         ``"AICc"`` or ``"AIC"`` (AIC when fewer than two models have a finite AICc).
     weights : dict
-        Akaike weights (from ``criterion``) of the ranked models; 0 for unrankable ones.
+        Akaike weights (from ``criterion``) of the ranked models; 0 for a failed fit; ``None`` for a
+        law with too few points: one that leaves fewer than :data:`MIN_DOF` degrees of freedom
+        (points minus parameters) is fitted and shown but never ranked or weighted.
     ratios : dict
         ``{"sqrt": RatioTrend, "sqrt_log": RatioTrend}``.
     exponent : tuple
@@ -442,9 +444,14 @@ class Comparison:
     verdict: str
 
     @property
-    def best(self) -> FitResult:
-        """The top-ranked fit."""
-        return self.fits[0]
+    def best(self) -> FitResult | None:
+        """The top-ranked fit, or ``None`` when no law could be ranked (too few points for every one)."""
+        top = self.fits[0] if self.fits else None
+        return top if top is not None and self.weights.get(top.model) is not None else None
+
+    def too_few(self, model: str) -> bool:
+        """True when ``model`` has too few points to be ranked (fewer than 2 degrees of freedom left)."""
+        return self.weights.get(model, 0.0) is None
 
     def fit(self, model: str) -> FitResult | None:
         """The fit of ``model``, or ``None`` if it was not fitted."""
@@ -456,11 +463,18 @@ class Comparison:
             return v if isinstance(v, float) and math.isfinite(v) else None
         return {
             "criterion": self.criterion, "weights": self.weights,
-            "ranking": [f.model for f in self.fits], "fits": [f.to_dict() for f in self.fits],
+            "ranking": [f.model for f in self.fits if self.weights.get(f.model) is not None],
+            "too_few_points": [f.model for f in self.fits if self.weights.get(f.model) is None],
+            "fits": [f.to_dict() for f in self.fits],
             "ratios": {k: v.to_dict() for k, v in self.ratios.items()},
             "exponent": [fin(v) for v in self.exponent], "exponent_sqrt_log": fin(self.exponent_sqrt_log),
             "log_range": fin(self.log_range), "preference": self.preference, "verdict": self.verdict,
         }
+
+
+#: A law is ranked only when it leaves at least this many degrees of freedom (points − parameters):
+#: with fewer, a law can pass through (nearly) every point and its criterion means nothing.
+MIN_DOF = 2
 
 
 def _ic(f: FitResult, crit: str) -> float:
@@ -517,12 +531,13 @@ def compare_models(T, y, laws: Sequence[str] = ("sqrt", "sqrt_log", "power", "po
         raise AdvboundError(f"fit: the growth variable must exceed 1 for log T, got {T.min():g}")
     laws = list(dict.fromkeys(["sqrt", "sqrt_log", *laws]))
     fits = fit_all(T, y, laws, offsets, bootstrap=bootstrap, seed=seed, weighting=weighting)
-    finite_aicc = [f for f in fits if f.success and math.isfinite(f.aicc)]
+    few = [f for f in fits if len(T) - len(f.params) < MIN_DOF]
+    finite_aicc = [f for f in fits if f.success and math.isfinite(f.aicc) and f not in few]
     crit = "AICc" if len(finite_aicc) >= 2 else "AIC"
-    rankable = [f for f in fits if f.success and math.isfinite(_ic(f, crit))]
+    rankable = [f for f in fits if f.success and math.isfinite(_ic(f, crit)) and f not in few]
     rankable.sort(key=lambda f: _ic(f, crit))
     rest = [f for f in fits if f not in rankable]
-    weights = {f.model: 0.0 for f in fits}
+    weights = {f.model: (None if f in few else 0.0) for f in fits}
     if rankable:
         best_ic = _ic(rankable[0], crit)
         w = np.array([math.exp(-0.5 * (_ic(f, crit) - best_ic)) for f in rankable])
@@ -552,7 +567,8 @@ def compare_models(T, y, laws: Sequence[str] = ("sqrt", "sqrt_log", "power", "po
     for off in offsets:
         sfx = "+offset" if off else ""
         a_, b_ = by.get("sqrt" + sfx), by.get("sqrt_log" + sfx)
-        if a_ and b_ and a_.success and b_.success and math.isfinite(_ic(a_, crit)) and math.isfinite(_ic(b_, crit)):
+        if (a_ and b_ and a_ in rankable and b_ in rankable and math.isfinite(_ic(a_, crit))
+                and math.isfinite(_ic(b_, crit))):
             deltas[bool(off)] = _ic(b_, crit) - _ic(a_, crit)
     wide = log_range >= MIN_LOG_RANGE
     signs = {("sqrt" if d > 0 else "sqrt_log") for d in deltas.values()}
@@ -560,7 +576,7 @@ def compare_models(T, y, laws: Sequence[str] = ("sqrt", "sqrt_log", "power", "po
     clear = (bool(deltas) and not missing and all(abs(d) >= DELTA_SMALL for d in deltas.values())
              and len(signs) == 1)
     neither = False
-    if pw is not None and pw.success and math.isfinite(exponent[1]):
+    if pw is not None and pw in rankable and math.isfinite(exponent[1]):
         lo, hi = exponent[1], exponent[2]
         excl = not (lo <= 0.5 <= hi) and not (lo <= a_eff <= hi)
         beaten = all(_ic(by[m], crit) - _ic(pw, crit) > 10 for m in ("sqrt", "sqrt_log")
@@ -592,9 +608,13 @@ def _verdict(T, preference, deltas, missing, crit, exponent, a_eff, log_range, r
     parts = [f"Over {v} in [{t0:g}, {t1:g}] ({len(T)} points) log {v} runs from {math.log(t0):.3g} to "
              f"{math.log(t1):.3g}, so the factor sqrt(log T) separating the two laws changes by "
              f"a factor {grow:.3g} across the whole range."]
-    if ranked:
+    if ranked and weights.get(ranked[0].model) is not None:
         top = ranked[0]
         parts.append(f"Best by {crit}: {top.model} (Akaike weight {weights.get(top.model, 0):.2f}).")
+    few = [f.model for f in ranked if weights.get(f.model) is None]
+    if few:
+        parts.append(f"Too few points for {', '.join(few)}: {len(T)} points leave fewer than {MIN_DOF} degrees of "
+                     f"freedom, so they are not ranked.")
     for off, d in sorted(deltas.items()):
         label = "with an additive offset" if off else "without offset"
         who = "sqrt(T)" if d > 0 else "sqrt(T log T)"

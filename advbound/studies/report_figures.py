@@ -19,7 +19,7 @@ def _figure(ncols: int):
     matplotlib.rcParams.setdefault("pdf.fonttype", 42)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    fig = Figure(figsize=(5.2 * ncols, 4.0), layout="constrained")
+    fig = Figure(figsize=(6.6 * ncols, 4.0), layout="constrained")
     FigureCanvasAgg(fig)
     return fig
 
@@ -43,6 +43,38 @@ def _by_bound(series):
 
 _BOUND_TITLE = {"general": "ADV± (general)", "positive": "ADV (positive)"}
 
+#: Markers cycled over series, so that series with equal values stay visible on top of each other.
+_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
+
+
+def law_label(model: str, growth: str = "T") -> str:
+    """A fitted law as mathematics: ``sqrt_log+offset`` -> ``√(T log T) + d``.
+
+    >>> law_label("sqrt_log"), law_label("power+offset", "n")
+    ('√(T log T)', 'c·n^a + d')
+    """
+    base, _, off = model.partition("+")
+    text = {"sqrt": f"√{growth}", "sqrt_log": f"√({growth} log {growth})", "power": f"c·{growth}^a",
+            "power_log": f"c·{growth}^a·log {growth}"}.get(base, base)
+    return text + (" + d" if off else "")
+
+
+def _plain_log_ticks(ax, xs) -> None:
+    """Log axes labelled with plain numbers: the growth values on x, plain decimals on y."""
+    from matplotlib.ticker import FormatStrFormatter, NullFormatter
+    if xs:
+        ax.set_xticks(xs)
+        ax.set_xticklabels([f"{v:g}" for v in xs])
+        ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.yaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.yaxis.set_minor_formatter(FormatStrFormatter("%g"))
+
+
+def _legend_outside(ax) -> None:
+    """The legend to the right of the axes, never over the data."""
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize="x-small", loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
+
 
 def _plot_bounds(series, fits, growth, out) -> list[str]:
     import numpy as np
@@ -58,26 +90,32 @@ def _plot_bounds(series, fits, growth, out) -> list[str]:
             T = np.array(s.T)
             lo = np.array(s.lower)
             up = np.array([u if u is not None else np.nan for u in s.upper])
-            ax.plot(T, lo, "o", color=color,
-                    label="lower" if s.key is None else f"lower, {s.name or 'series'}={s.key}")
+            label = (f"envelope: max over {s.envelope}" if s.envelope else
+                     "lower" if s.key is None else f"lower, {s.name or 'series'}={s.key}")
+            ax.plot(T, lo, "*" if s.envelope else _MARKERS[i % len(_MARKERS)], color=color,
+                    markersize=10 if s.envelope else 6, fillstyle="full" if s.envelope else "none", label=label)
             ax.fill_between(T, lo, np.where(np.isnan(up), lo, up), color=color, alpha=0.25, linewidth=0)
             ax.plot(T, up, "_", color=color, markersize=10)
             cmp = fits.get(s.label)
             if cmp is not None and not isinstance(cmp, str):
                 grid = np.linspace(T.min(), T.max(), 200)
-                models = list(dict.fromkeys([cmp.best.model, "sqrt", "sqrt_log"]))
+                top = cmp.best.model if cmp.best is not None else None
+                models = list(dict.fromkeys([m for m in (top, "sqrt", "sqrt_log") if m]))
                 for model in models:
-                    ls = "-" if model == cmp.best.model else (":" if model == "sqrt" else "--")
+                    ls = "-" if model == top else (":" if model == "sqrt" else "--")
                     fr = cmp.fit(model)
                     if fr is not None and fr.success:
-                        best = " (best)" if model == cmp.best.model else ""
+                        best = " (best)" if model == top else ""
                         ax.plot(grid, evaluate(model, fr.params, grid), ls, color=color, linewidth=1,
-                                label=f"{model} fit{best}")
-        ax.set_xlabel(growth)
-        ax.set_ylabel("bound")
+                                label=f"{law_label(model, growth)} fit{best}")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        _plain_log_ticks(ax, sorted({v for x in series if x.bound == bound for v in x.T}))
+        ax.set_xlabel(f"{growth} (log scale)")
+        ax.set_ylabel(f"verified bound on {_BOUND_TITLE.get(bound, bound)} (log scale)")
         gap = f" (widest {max(gaps):.1g})" if gaps else " (no upper bounds)"
         ax.set_title(f"{_BOUND_TITLE.get(bound, bound)}: lower points, upper band{gap}", fontsize="medium")
-        ax.legend(fontsize="small")
+        _legend_outside(ax)
     return _save(fig, out, "bound_vs_T")
 
 
@@ -89,15 +127,18 @@ def _plot_ratios(series, growth, out) -> list[str]:
         T = np.array(s.T)
         lo = np.array(s.lower)
         ok = T > 1
-        mk = "o-" if s.bound == "general" else "s--"
+        mk = ("*" if s.envelope else _MARKERS[i % len(_MARKERS)]) + ("-" if s.bound == "general" else "--")
         lab = s.label
-        axes[0].plot(T, lo / np.sqrt(T), mk, color=f"C{i}", label=lab)
-        axes[1].plot(T[ok], lo[ok] / np.sqrt(T[ok] * np.log(T[ok])), mk, color=f"C{i}", label=lab)
-    axes[0].set_title(f"L / sqrt({growth})")
-    axes[1].set_title(f"L / sqrt({growth} log {growth})")
+        axes[0].plot(T, lo / np.sqrt(T), mk, color=f"C{i % 10}", fillstyle="none", label=lab)
+        axes[1].plot(T[ok], lo[ok] / np.sqrt(T[ok] * np.log(T[ok])), mk, color=f"C{i % 10}", fillstyle="none",
+                     label=lab)
+    axes[0].set_title(f"L / √{growth}")
+    axes[1].set_title(f"L / √({growth} log {growth})")
+    axes[0].set_ylabel(f"L / √{growth}")
+    axes[1].set_ylabel(f"L / √({growth} log {growth})")
     for ax in axes:
         ax.set_xlabel(growth)
-        ax.legend(fontsize="small")
+        _legend_outside(ax)
     return _save(fig, out, "ratios")
 
 
@@ -110,21 +151,22 @@ def _plot_residuals(fits, growth, out) -> list[str]:
     for si, (label, cmp) in enumerate(fits.items()):
         if isinstance(cmp, str):
             continue
-        for model in dict.fromkeys(["sqrt", "sqrt_log", cmp.best.model]):
+        top = cmp.best.model if cmp.best is not None else None
+        for model in dict.fromkeys([m for m in ("sqrt", "sqrt_log", top) if m]):
             fr = cmp.fit(model)
             if fr is None or not fr.success:
                 continue
             rel = np.array(fr.residuals) / np.array(fr.y)
-            best = " (best)" if model == cmp.best.model else ""
+            best = " (best)" if model == top else ""
             ax.plot(fr.T, rel, markers.get(model, "^") + ("-" if best else ":"), color=f"C{si % 10}",
-                    linewidth=0.8, label=f"{label}: {model}{best}")
+                    linewidth=0.8, label=f"{label}: {law_label(model, growth)}{best}")
             i += 1
     ax.axhline(0, color="k", linewidth=0.6)
     ax.set_xlabel(growth)
     ax.set_ylabel("relative residual (L - fit) / L")
     ax.set_title("fit residuals")
     if i:
-        ax.legend(fontsize="x-small")
+        _legend_outside(ax)
     return _save(fig, out, "residuals")
 
 
@@ -179,6 +221,5 @@ def _plot_exact(columns, points, growth, series_key, out) -> list[str]:
     from matplotlib.ticker import MaxNLocator
     for ax in (ax_q, ax_p):
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
-        if ax.get_legend_handles_labels()[0]:
-            ax.legend(fontsize="x-small")
+        _legend_outside(ax)
     return _save(fig, out, "exact_vs_T")

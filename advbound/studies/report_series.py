@@ -46,10 +46,16 @@ class Series:
     domain_size: tuple
     rows: tuple
     name: str | None = None
+    envelope: str | None = None
+    argmax: tuple = ()
+    at_edge: tuple = ()
 
     @property
     def label(self) -> str:
-        """E.g. ``"general, rows=3"`` (``"series 3"`` without a name), or ``"general"`` without a key."""
+        """E.g. ``"general, rows=3"`` (``"series 3"`` without a name), ``"general"`` without a key, or
+        ``"general, envelope over rows"`` for an envelope series."""
+        if self.envelope:
+            return f"{self.bound}, envelope over {self.envelope}"
         if self.key is None:
             return self.bound
         return f"{self.bound}, {self.name}={self.key}" if self.name else f"{self.bound}, series {self.key}"
@@ -110,7 +116,40 @@ def collect_series(store: Store, meta: dict | None = None) -> list[Series]:
         out.append(Series(bound, key, tuple(float(r.params[growth]) for r in rows), tuple(r.lower for r in rows),
                           tuple(r.upper for r in rows), tuple(r.domain_size for r in rows), tuple(rows),
                           skey))
+    env = meta.get("envelope")
+    if env:
+        everything = [r for rows in groups.values() for r in rows]
+        out += [s for s in (_envelope(everything, bound, growth, env) for bound in _bounds_of(groups)) if s]
     return out
+
+
+def _bounds_of(groups: dict) -> list[str]:
+    order = {"general": 0, "positive": 1}
+    return sorted({bound for bound, _ in groups}, key=lambda b: (order.get(b, 9), b))
+
+
+def _envelope(rows: list[StoredRow], bound: str, growth: str, param: str) -> Series | None:
+    """The envelope ``E(T) = max over param`` of one bound: at each growth value the row with the
+    largest verified lower bound.  Its upper bound is the largest upper bound over the computed values
+    of ``param`` (None when one is missing): a bound on the maximum over those values only.
+    ``at_edge`` marks growth values whose best ``param`` is the smallest or largest computed one,
+    where the maximum over all values may lie outside the computed range."""
+    byT: dict = {}
+    for r in rows:
+        if r.bound == bound and param in r.params and _real(r.params[param]):
+            byT.setdefault(float(r.params[growth]), []).append(r)
+    if not byT:
+        return None
+    Ts = sorted(byT)
+    best = [max(byT[T], key=lambda r: r.lower) for T in Ts]
+    uppers = [None if any(r.upper is None for r in byT[T]) else max(r.upper for r in byT[T]) for T in Ts]
+    edge = []
+    for T, b in zip(Ts, best):
+        vals = [r.params[param] for r in byT[T]]
+        edge.append(len(vals) < 2 or b.params[param] in (min(vals), max(vals)))
+    return Series(bound, None, tuple(Ts), tuple(r.lower for r in best), tuple(uppers),
+                  tuple(r.domain_size for r in best), tuple(best), param, envelope=param,
+                  argmax=tuple(r.params[param] for r in best), at_edge=tuple(edge))
 
 
 def _sortable(v):
@@ -123,6 +162,7 @@ _SETTING_CHECKS = {
     "report": (lambda v: isinstance(v, str), "must be text"),
     "growth": (lambda v: isinstance(v, str), "must be text"),
     "series": (lambda v: isinstance(v, str), "must be text"),
+    "envelope": (lambda v: isinstance(v, str), "must be text"),
     "laws": (lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v), "must be a list of law names"),
     "offsets": (lambda v: isinstance(v, list) and all(isinstance(x, bool) for x in v),
                 "must be a list of true/false"),

@@ -58,6 +58,23 @@ def _listing(w, items) -> None:
     w("\n")
 
 
+def _envelope_section(w, s, growth) -> None:
+    """The envelope series: the best value of its parameter at each growth value, and where it is unsure."""
+    p = s.envelope
+    w(f"### {s.label}\n\nAt each {growth}, the largest verified lower bound over the computed values of `{p}`, "
+      f"and the `{p}` that gives it. The upper column is the largest upper bound over those values: it bounds "
+      f"the maximum over the computed range only.\n\n"
+      f"| {growth} | best {p} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|---:|\n")
+    for t, n, lo, up, d, edge in zip(s.T, s.argmax, s.lower, s.upper, s.domain_size, s.at_edge):
+        gap = None if up is None else up - lo
+        w(f"| {t:g} | {n}{' (edge)' if edge else ''} | {d} | {_f(lo)} | {_f(up)} | {_g(gap, 2)} |\n")
+    edges = [f"{t:g}" for t, e in zip(s.T, s.at_edge) if e]
+    if edges:
+        w(f"\n(edge): the best `{p}` is the smallest or largest one computed at {growth} = {', '.join(edges)}, so "
+          f"the envelope there may be larger than shown; extend the grid of `{p}`.\n")
+    w("\n")
+
+
 def _summary(meta, name, rows, series, fits, growth, generated, store_path, figures, tables, data, prov,
              out, exact=None, invalid=(), left_out=(), certs=()) -> str:
     b = io.StringIO()
@@ -98,6 +115,9 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
           "when written, but cannot be rechecked from here):\n\n")
         _listing(w, [f"`{m}`" for m in certs])
     for s in series:
+        if s.envelope:
+            _envelope_section(w, s, growth)
+            continue
         w(f"### {s.label}\n\n| {growth} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|\n")
         for t, lo, up, d in zip(s.T, s.lower, s.upper, s.domain_size):
             gap = None if up is None else up - lo
@@ -130,7 +150,10 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
                            + (f" [{_g(fr.intervals[k][0], 4)}, {_g(fr.intervals[k][1], 4)}]"
                               if k in fr.intervals else "") for k, v in fr.params.items())
             crit = fr.aicc if cmp.criterion == "AICc" else fr.aic
-            w(f"| {fr.model} | {ps} | {_g(crit, 4)} | {_g(fr.bic, 4)} | {cmp.weights.get(fr.model, 0):.3f} |\n")
+            if cmp.too_few(fr.model):
+                w(f"| {fr.model} | {ps} | -- | -- | too few points for this law |\n")
+            else:
+                w(f"| {fr.model} | {ps} | {_g(crit, 4)} | {_g(fr.bic, 4)} | {cmp.weights.get(fr.model, 0):.3f} |\n")
         w(f"\n{cmp.verdict}\n\n")
     w("## Files\n\n")
     for p in [*figures, *tables, *data, prov]:

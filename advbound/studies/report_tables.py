@@ -60,9 +60,10 @@ def latex_results_table(series: list[Series], growth: str = "T") -> str:
     for i, s in enumerate(series):
         if i:
             lines.append(r"\addlinespace")
-        for t, lo, up, d in zip(s.T, s.lower, s.upper, s.domain_size):
+        for k, (t, lo, up, d) in enumerate(zip(s.T, s.lower, s.upper, s.domain_size)):
             gap = None if up is None else up - lo
-            lines.append(f"{_tex(s.bound)} & {_tex('' if s.key is None else s.key)} & {t:g} & "
+            key = f"max: {s.argmax[k]}" if s.envelope else ('' if s.key is None else s.key)
+            lines.append(f"{_tex(s.bound)} & {_tex(key)} & {t:g} & "
                          f"{'--' if d is None else d} & {_f(lo)} & {_f(up)} & "
                          f"{'--' if gap is None else '$' + _gtex(gap, 2) + '$'} \\\\")
     lines += [r"\bottomrule", r"\end{tabular}"]
@@ -83,8 +84,9 @@ def latex_fit_table(fits: dict) -> str:
         for fr in cmp.fits:
             ps = ", ".join(f"${_tex(k)} = {_gtex(v, 4)} \\pm {_gtex(fr.stderr.get(k), 2)}$"
                            for k, v in fr.params.items())
-            lines.append(f"{_tex(label)} & {_tex(fr.model)} & {ps} & {_g(fr.aicc, 4)} & "
-                         f"{cmp.weights.get(fr.model, 0.0):.3f} \\\\")
+            few = cmp.too_few(fr.model)
+            lines.append(f"{_tex(label)} & {_tex(fr.model)} & {ps} & {'--' if few else _g(fr.aicc, 4)} & "
+                         f"{'too few points' if few else format(cmp.weights.get(fr.model, 0.0), '.3f')} \\\\")
     lines += [r"\bottomrule", r"\end{tabular}"]
     return "\n".join(lines) + "\n"
 

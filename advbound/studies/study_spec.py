@@ -58,6 +58,7 @@ STUDY_KEYS = {
     "certificates": "certificate directory (default: the store path without .sqlite, plus -certificates)",
     "growth": 'grid parameter used as the growth variable (default "T")',
     "series": "grid parameter whose values form separate series (optional)",
+    "envelope": "grid parameter to maximise over at each growth value: adds the envelope series (optional)",
     "laws": "candidate laws to fit",
     "offsets": '"both" (default), true (only with offset) or false (only without)',
     "bootstrap": "bootstrap resamples per fit (default 200)",
@@ -93,6 +94,7 @@ class StudySpec:
     certificates: str = ""
     growth: str = "T"
     series: str | None = None
+    envelope: str | None = None
     laws: tuple = ("sqrt", "sqrt_log", "power")
     offsets: tuple = (False, True)
     bootstrap: int = 200
@@ -201,7 +203,7 @@ def load_study(path, *, store: str | None = None, certificates: str | None = Non
     if not isinstance(bounds, list) or not bounds or any(b not in _BOUNDS for b in bounds):
         raise _err(path, f"bounds = {bounds!r}: expected a list of 'general' and/or 'positive'")
     kw["bounds"] = tuple(dict.fromkeys(bounds))
-    for key, typ in (("method", str), ("solver", str), ("growth", str), ("series", str)):
+    for key, typ in (("method", str), ("solver", str), ("growth", str), ("series", str), ("envelope", str)):
         if key in raw:
             if not isinstance(raw[key], typ):
                 raise _err(path, f"{key} = {raw[key]!r} must be a string")
@@ -236,7 +238,7 @@ def load_study(path, *, store: str | None = None, certificates: str | None = Non
     if "exact" in raw:
         kw["exact"] = _parse_exact(path, raw["exact"])
     grid = dict(getattr(spec, "grid", None) or {})
-    for key in ("growth", "series"):
+    for key in ("growth", "series", "envelope"):
         v = kw.get(key, "T" if key == "growth" else None)
         if v is not None and grid and v not in grid:
             raise _err(path, f"{key} = {v!r} is not a [grid] parameter (grid has {', '.join(grid)})")
@@ -331,7 +333,7 @@ def study_meta(study: StudySpec) -> dict:
     return {
         "name": study.name, "path": study.path, "description": study.description,
         "bounds": list(study.bounds), "settings": solver_settings(study), "growth": study.growth,
-        "series": study.series, "laws": list(study.laws), "offsets": list(study.offsets),
+        "series": study.series, "envelope": study.envelope, "laws": list(study.laws), "offsets": list(study.offsets),
         "bootstrap": study.bootstrap, "seed": study.seed, "report": study.report,
         "certificates": study.certificates,
         "exact": _jsonable(study.exact) if study.exact else None,

@@ -209,11 +209,26 @@ def _write_data(rows: list[StoredRow], certificate: dict, meta: dict, fits: dict
                         ("" if certificate[r.run_key] is None else certificate[r.run_key]) if c == "certificate" else
                         ("" if getattr(r, c) is None else getattr(r, c)) for c in cols])
     json_path = out / "data.json"
-    json_path.write_text(json.dumps({"study": meta, "rows": data_rows}, indent=1, sort_keys=True, default=str))
+    json_path.write_text(json.dumps({"study": portable_meta(meta), "rows": data_rows}, indent=1, sort_keys=True,
+                                    default=str))
     fits_path = out / "fits.json"
     fits_path.write_text(json.dumps({k: (v if isinstance(v, str) else v.to_dict()) for k, v in fits.items()},
                                     indent=1, allow_nan=False, default=str))
     return csv_path, json_path, fits_path
+
+
+def portable_meta(meta: dict) -> dict:
+    """The study settings with absolute paths (of the machine that ran the study) cut to their last part.
+
+    >>> portable_meta({"certificates": "/work/runs/a-certificates", "store": "studies/a.sqlite"})
+    {'certificates': 'a-certificates', 'store': 'studies/a.sqlite'}
+    """
+    out = dict(meta)
+    for key in ("store", "certificates", "report", "path"):
+        v = out.get(key)
+        if isinstance(v, str) and os.path.isabs(v):
+            out[key] = os.path.basename(os.path.normpath(v))
+    return out
 
 
 def _write_provenance(rows: list[StoredRow], certificate: dict, exact_rows: list[StoredRow] | None, meta: dict,
@@ -222,8 +237,9 @@ def _write_provenance(rows: list[StoredRow], certificate: dict, exact_rows: list
     versions = sorted({json.dumps(r.versions, sort_keys=True) for r in rows})
     prov = {
         "generated": generated, "store": os.path.relpath(os.path.abspath(store_path), os.path.abspath(out)),
-        "paths": "store: relative to this report's folder; certificate: relative to the store's folder",
-        "study": meta,
+        "paths": "store: relative to this report's folder; certificate: relative to the store's folder; "
+                 "absolute paths in the study settings are cut to their last part",
+        "study": portable_meta(meta),
         "solver_settings": sorted({json.dumps(r.solver, sort_keys=True) for r in rows}),
         "versions": [json.loads(v) for v in versions],
         "points": [{"run_key": r.run_key, "spec_key": r.spec_key, "params": r.params, "bound": r.bound,

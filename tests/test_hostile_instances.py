@@ -263,7 +263,8 @@ class TestGrids:
         spec = load_instance(path)
         assert build_instance(spec, {"T": 3}).size == 8
         with pytest.raises(InvalidInstanceError, match=r"f\.toml \[grid point T=2\]: the budget \(sum t_i\^2 = 2\) "
-                                                       r"allows no time profile$"):
+                                                       r"allows no time profile: the smallest sum of t_i\^2 any "
+                                                       r"input has is 3, above 2$"):
             build_instance(spec, {"T": 2})
 
     def test_absurd_grid_refused(self, tmp_path, capsys):

@@ -96,7 +96,8 @@ class TestSchema:
         (('T = { from = 4, to = 6 }', 'T = { from = 4, upto = 6 }'), r"\[grid\] T: unknown key 'upto'"),
         (('[grid]', 'stray = 1\n[grid]'), r"\[instance\] stray: unknown key"),
         (('row_length = "T - 2"', 'row_length = "T - 2"\ninner = { table = "nope.tbl" }'), r"cannot read table file 'nope\.tbl'"),
-        (('row_length = "T - 2"', 'inner = "position_search"'), r"row_length: missing"),
+        (('row_length = "T - 2"\nbudget = { sum_squares = "T" }', 'inner = "position_search"'),
+         r"row_length: missing \(needed by inner = \"position_search\" without a budget"),
     ])
     def test_schema_errors(self, tmp_path, change, msg):
         """Unknown keys and bad values raise InvalidInstanceError naming the file, grid point and key."""

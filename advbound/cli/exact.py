@@ -41,7 +41,7 @@ def register(subparsers) -> None:
     p.add_argument("--set", dest="params", action="append", default=[], metavar="NAME=VALUE",
                    help="set an instance parameter (repeatable), e.g. --set T=7")
     mode = p.add_mutually_exclusive_group(required=True)
-    mode.add_argument("--queries", type=int, metavar="T", help="number of queries t")
+    mode.add_argument("--queries", type=int, metavar="Q", help="number of queries t")
     mode.add_argument("--error", type=float, metavar="EPS", help="allowed error ε in [0, 1)")
     p.add_argument("--max-queries", type=int, default=None, metavar="N",
                    help="with --error: largest t tried (default: number of live positions)")

@@ -25,8 +25,10 @@ def register(subparsers) -> None:
                     "store (STUDY is the study .toml or the .sqlite store), rank them and print a verdict.")
     p.add_argument("study", metavar="STUDY", help="study .toml file or .sqlite store")
     p.add_argument("--store", metavar="PATH", default=None, help="store path overriding the study file's")
-    p.add_argument("--bootstrap", type=int, default=None, metavar="N", help="bootstrap resamples per fit")
-    p.add_argument("--seed", type=int, default=None, metavar="N", help="bootstrap seed")
+    p.add_argument("--bootstrap", type=int, default=None, metavar="N",
+                   help="bootstrap resamples per fit (default: the study's bootstrap setting, else 200)")
+    p.add_argument("--seed", type=int, default=None, metavar="N",
+                   help="bootstrap seed (default: the study's seed setting, else 0)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
 

@@ -25,8 +25,10 @@ def register(subparsers) -> None:
     p.add_argument("--store", metavar="PATH", default=None, help="store path overriding the study file's")
     p.add_argument("--out", metavar="DIR", default=None,
                    help="output directory (default: [study] report, else reports/<name>)")
-    p.add_argument("--bootstrap", type=int, default=None, metavar="N", help="bootstrap resamples per fit")
-    p.add_argument("--seed", type=int, default=None, metavar="N", help="bootstrap seed")
+    p.add_argument("--bootstrap", type=int, default=None, metavar="N",
+                   help="bootstrap resamples per fit (default: the study's bootstrap setting, else 200)")
+    p.add_argument("--seed", type=int, default=None, metavar="N",
+                   help="bootstrap seed (default: the study's seed setting, else 0)")
     p.set_defaults(run=run)
 
 

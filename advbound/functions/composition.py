@@ -103,7 +103,7 @@ def compose(outer: PartialFunction, inners: PartialFunction | Sequence[PartialFu
     alphabet, rows, levels = _rows_of(inners, models, budget)
     allowed = budget.allowed_profiles(levels) if budget is not None else None
     if allowed is not None and not allowed:
-        raise InvalidFunctionError(f"the budget ({budget.describe()}) allows no time profile")
+        raise InvalidFunctionError(_no_profile_message(budget, levels))
     children = _profile_tree(allowed, n)
     n_positions = sum(h.n for h in inners)
     outer_map, outer_prefixes = _checked_size(outer, rows, children, max_ones, n_positions, max_inputs)
@@ -385,6 +385,25 @@ def _closed_under_permutations(profiles: set[tuple], n: int) -> bool:
             if tuple(q) not in profiles:
                 return False
     return True
+
+
+def _no_profile_message(budget: Budget, levels) -> str:
+    """Why a budget allows no profile: a sum below the smallest possible one, or an exact sum no times meet."""
+    msg = f"the budget ({budget.describe()}) allows no time profile"
+    if budget.kind == "profiles":
+        return msg
+    sq = [sorted(float(v) ** 2 for v in lv.values()) for lv in levels]
+    if all(sq):
+        lo, hi = sum(r[0] for r in sq), sum(r[-1] for r in sq)
+        if lo > budget.T + budget.tolerance:
+            return msg + f": the smallest sum of t_i^2 any input has is {lo:g}, above {budget.T:g}"
+        if budget.kind == "at_most" or hi < budget.T - budget.tolerance:
+            return msg + (f": the largest sum of t_i^2 any input has is {hi:g}, below {budget.T:g}"
+                          if hi < budget.T - budget.tolerance else "")
+    return msg + (f"; no combination of squared times adds up to {budget.T:g} within rtol {budget.rtol:g}, as "
+                  f"irrational times (t = k^α with α ≠ 1/2) almost never do: use budget = {{ at_most = \"T\" }} "
+                  f"(Σ t_i² ≤ T), or widen the equality with an explicit rtol "
+                  f"(e.g. budget = {{ sum_squares = \"T\", rtol = 0.05 }})")
 
 
 def position_search_composition(outer: str | PartialFunction, n: int, m: int | None, T: float, *,

@@ -14,9 +14,10 @@ import hashlib
 import logging
 import os
 import stat
+import warnings
 from typing import TYPE_CHECKING, Mapping
 
-from advbound.errors import AdvboundError, InvalidInstanceError
+from advbound.errors import AdvboundError, AdvboundWarning, InvalidInstanceError
 from advbound.functions.expressions import _as_int, _canon_number, _int_of, _name, _short, evaluate
 from advbound.functions.function import PartialFunction
 from advbound.functions.grid import _params, _source
@@ -91,6 +92,7 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
     for d in inner:
         d.pop("_uses_row_length", None)
         d.pop("arity", None)
+    derived = [d.pop("_derived", False) for d in inner]
 
     budget = None
     if "budget" in inst:
@@ -117,6 +119,12 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
         max_ones = _int_of(inst["max_ones"], p, where("max_ones"), 0)
     if budget is not None:
         _shorten_rows(inner, time, budget, src)
+        if "row_length" in inst:
+            _warn_cut_rows(inner, time, budget, src)
+    for d, was_derived in zip(inner, derived):
+        if was_derived and d.get("position_search") == DERIVED_LENGTH:
+            raise InvalidInstanceError(f"{src}: [instance] row_length: missing, and this budget does not bound "
+                                       "the positions a row can use; give row_length")
     return {"name": spec.name, "description": spec.description, "rows": rows, "outer": outer,
             "inner": inner, "time": time, "budget": budget, "max_ones": max_ones}
 
@@ -142,6 +150,30 @@ def _shorten_rows(inner: list[dict], time, budget: dict, src: str) -> None:
 
 
 _SHORTENED: set = set()
+
+#: The row length an omitted ``row_length`` starts from before the budget cuts it to the usable length.
+DERIVED_LENGTH = 10 ** 9
+
+
+def _warn_cut_rows(inner: list[dict], time, budget: dict, src: str) -> None:
+    """Warn (once per file, point and row) when a given ``row_length`` leaves out positions the budget allows."""
+    lengths = [d.get("position_search") for d in inner]
+    if not any(m is not None for m in lengths):
+        return
+    try:
+        models = [_time_model(t) for t in time] if isinstance(time, list) else [_time_model(time)] * len(inner)
+        usable = usable_row_lengths([None if m is None else DERIVED_LENGTH for m in lengths], models, _budget(budget))
+    except AdvboundError:
+        return
+    cut = [(i, m, u) for i, (m, u) in enumerate(zip(lengths, usable))
+           if m is not None and u is not None and u != DERIVED_LENGTH and u > m]
+    note = ("cut", src, tuple(cut))
+    if cut and note not in _SHORTENED:
+        _SHORTENED.add(note)
+        parts = "; ".join(f"row {i + 1}: positions {m + 1}..{u}" for i, m, u in cut)
+        warnings.warn(f"{src}: [instance] row_length leaves out positions the budget allows ({parts}); inputs "
+                      f"that use them are not in the domain; omit row_length to use every allowed position",
+                      AdvboundWarning, stacklevel=2)
 
 
 def _budget(b: dict) -> Budget:
@@ -225,8 +257,11 @@ def _resolve_inner(spec, value, p, key, src) -> dict:
     inst = spec.instance
     if value == "position_search":
         if "row_length" not in inst:
+            if "budget" in inst:   # derived by _shorten_rows: the last position an allowed profile uses
+                return {"position_search": DERIVED_LENGTH, "_uses_row_length": True, "_derived": True}
             raise InvalidInstanceError(f"{src}: [instance] row_length: missing (needed by "
-                                       "inner = \"position_search\")")
+                                       "inner = \"position_search\" without a budget; with a budget it is "
+                                       "derived from the budget)")
         m = _int_of(inst["row_length"], p, f"{src}: [instance] row_length", 1)
         return {"position_search": m, "_uses_row_length": True}
     if isinstance(value, dict) and "position_search" in value:

@@ -90,7 +90,7 @@ def test_report_files_well_formed(tmp_path):
 def _check_tabular(text):
     """Structural check of a booktabs tabular: one begin/end, rules in order, column counts match."""
     assert text.count(r"\begin{tabular}") == 1 and text.count(r"\end{tabular}") == 1
-    spec = re.search(r"\\begin\{tabular\}\{([lcr]+)\}", text).group(1)
+    spec = re.findall(r"[lcr]|p\{[^}]*\}", re.search(r"\\begin\{tabular\}\{((?:[lcr]|p\{[^}]*\})+)\}", text).group(1))
     i_top, i_mid, i_bot = (text.index(r) for r in (r"\toprule", r"\midrule", r"\bottomrule"))
     assert i_top < i_mid < i_bot
     for line in text.splitlines():

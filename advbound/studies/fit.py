@@ -472,6 +472,10 @@ class Comparison:
         }
 
 
+#: The closing sentence of every verdict (a report states it once for all series).
+CAVEAT = ("The residuals of deterministic solver output measure misfit, not random noise, so the "
+          "criteria are a rough guide; a fit is evidence about growth on this range, not a proof.")
+
 #: A law is ranked only when it leaves at least this many degrees of freedom (points − parameters):
 #: with fewer, a law can pass through (nearly) every point and its criterion means nothing.
 MIN_DOF = 2
@@ -629,7 +633,9 @@ def _verdict(T, preference, deltas, missing, crit, exponent, a_eff, log_range, r
         inside = [name for name, v in (("1/2", 0.5), (f"{a_eff:.3g} (the exponent sqrt(T log T) mimics here)", a_eff))
                   if math.isfinite(lo) and lo <= v <= hi]
         parts.append(f"Free power law: exponent a = {a:.3g}, 95% interval {_fmt_iv((lo, hi))}, containing "
-                     + (" and ".join(inside) if inside else "neither 1/2 nor " + f"{a_eff:.3g}") + ".")
+                     + (" and ".join(inside) if inside else "neither 1/2 (the exponent of sqrt(T)) nor "
+                        + f"{a_eff:.3g} (the effective exponent of sqrt(T log T) over this range: the slope "
+                          f"of log sqrt(T log T) against log T)") + ".")
     rs, rl = ratios["sqrt"], ratios["sqrt_log"]
     if math.isfinite(rs.slope):
         parts.append(f"Trend in log T of L/sqrt(T): slope {rs.slope:.3g} {_fmt_iv(rs.interval)}; "
@@ -651,6 +657,5 @@ def _verdict(T, preference, deltas, missing, crit, exponent, a_eff, log_range, r
             reason = "the criteria do not agree on a clear winner"
         parts.append(f"Verdict: this range cannot tell sqrt(T) from sqrt(T log T) apart, because {reason}; "
                      "a lower-order term (such as an offset) can imitate the slowly varying log factor.")
-    parts.append("The residuals of deterministic solver output measure misfit, not random noise, so the "
-                 "criteria are a rough guide; a fit is evidence about growth on this range, not a proof.")
+    parts.append(CAVEAT)
     return " ".join(parts)

@@ -11,6 +11,7 @@ import io
 import json
 import os
 
+from advbound.studies.fit import CAVEAT
 from advbound.studies.report_series import FIT_MAX_GAP
 from advbound.studies.report_tables import _f, _g, markdown_exact_table
 
@@ -58,15 +59,26 @@ def _listing(w, items) -> None:
     w("\n")
 
 
+def _relative_gap(lo, up):
+    """``(upper − lower) / upper``, the figure studies target (None without an upper bound)."""
+    return None if up is None else (up - lo) / max(abs(up), 1e-300)
+
+
+def _default_tol(method) -> str:
+    """The tolerance a study without ``tol`` ran with, in words."""
+    return {"factored": "1e-4 (target relative gap)", "rows": "1e-8",
+            "auto": "the method's default (1e-8 for the rows program, 1e-7 dense, 1e-4 factored)"}.get(method, "1e-7")
+
+
 def _envelope_section(w, s, growth) -> None:
     """The envelope series: the best value of its parameter at each growth value, and where it is unsure."""
     p = s.envelope
     w(f"### {s.label}\n\nAt each {growth}, the largest verified lower bound over the computed values of `{p}`, "
       f"and the `{p}` that gives it. The upper column is the largest upper bound over those values: it bounds "
       f"the maximum over the computed range only.\n\n"
-      f"| {growth} | best {p} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|---:|\n")
+      f"| {growth} | best {p} | domain size | lower | upper | relative gap |\n|---:|---:|---:|---:|---:|---:|\n")
     for t, n, lo, up, d, edge in zip(s.T, s.argmax, s.lower, s.upper, s.domain_size, s.at_edge):
-        gap = None if up is None else up - lo
+        gap = _relative_gap(lo, up)
         w(f"| {t:g} | {n}{' (edge)' if edge else ''} | {d} | {_f(lo)} | {_f(up)} | {_g(gap, 2)} |\n")
     edges = [f"{t:g}" for t, e in zip(s.T, s.at_edge) if e]
     if edges:
@@ -90,8 +102,9 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
         w("Instance template and grid:\n\n```json\n"
           + json.dumps({"instance": inst, "grid": meta.get("grid")}, sort_keys=True) + "\n```\n\n")
     w(f"Bounds: {', '.join(meta.get('bounds') or sorted({r.bound for r in rows if r.bound}))}; "
-      f"method {settings.get('method', '?')}, solver {settings.get('solver', '?')}, "
-      f"tol {settings.get('tol', '?')}, max_iters {settings.get('max_iters')}. "
+      f"method {settings.get('method', '?')}, solver {settings.get('solver') or 'the one the method picks'}, "
+      f"tol {settings.get('tol') or _default_tol(settings.get('method'))}, "
+      f"{'no iteration limit' if settings.get('max_iters') is None else 'max_iters ' + str(settings['max_iters'])}. "
       f"Growth variable `{growth}`" + (f", series by `{meta['series']}`" if meta.get("series") else "") + ".\n\n")
     ok = [r for r in rows if r.success]
     bad = [r for r in rows if r.failed and not r.invalid]
@@ -118,9 +131,10 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
         if s.envelope:
             _envelope_section(w, s, growth)
             continue
-        w(f"### {s.label}\n\n| {growth} | domain size | lower | upper | gap |\n|---:|---:|---:|---:|---:|\n")
+        w(f"### {s.label}\n\n| {growth} | domain size | lower | upper | relative gap |\n"
+          f"|---:|---:|---:|---:|---:|\n")
         for t, lo, up, d in zip(s.T, s.lower, s.upper, s.domain_size):
-            gap = None if up is None else up - lo
+            gap = _relative_gap(lo, up)
             w(f"| {t:g} | {d} | {_f(lo)} | {_f(up)} | {_g(gap, 2)} |\n")
         w("\n")
     w(_PROVES + "\n")
@@ -138,7 +152,8 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
     w("Least squares with relative weights; parameters ± standard errors from the Jacobian; "
       "bracketed intervals are seeded residual-bootstrap 95% intervals. Ranked by the information "
       "criterion named below; Akaike weights. Points whose verified relative gap exceeds "
-      f"{FIT_MAX_GAP:g} stay in the tables above but are left out of the fits.\n\n")
+      f"{FIT_MAX_GAP:g} stay in the tables above but are left out of the fits. A law that leaves fewer than "
+      "2 degrees of freedom (points minus parameters) is fitted but not ranked. " + CAVEAT + "\n\n")
     for label, cmp in fits.items():
         w(f"### {label}\n\n")
         if isinstance(cmp, str):
@@ -154,7 +169,7 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
                 w(f"| {fr.model} | {ps} | -- | -- | too few points for this law |\n")
             else:
                 w(f"| {fr.model} | {ps} | {_g(crit, 4)} | {_g(fr.bic, 4)} | {cmp.weights.get(fr.model, 0):.3f} |\n")
-        w(f"\n{cmp.verdict}\n\n")
+        w(f"\n{cmp.verdict.replace(' ' + CAVEAT, '')}\n\n")
     w("## Files\n\n")
     for p in [*figures, *tables, *data, prov]:
         w(f"* `{os.path.relpath(p, out)}`\n")

@@ -56,12 +56,12 @@ def latex_results_table(series: list[Series], growth: str = "T") -> str:
     """A booktabs ``tabular`` of bound, series, growth value, domain size, lower, upper and gap."""
     sname = next((x.name for x in series if x.name), None) or "series"
     lines = [r"\begin{tabular}{llrrrrr}", r"\toprule",
-             rf"bound & {_tex(sname)} & ${_tex(growth)}$ & $|D|$ & lower & upper & gap \\", r"\midrule"]
+             rf"bound & {_tex(sname)} & ${_tex(growth)}$ & $|D|$ & lower & upper & rel.\ gap \\", r"\midrule"]
     for i, s in enumerate(series):
         if i:
             lines.append(r"\addlinespace")
         for k, (t, lo, up, d) in enumerate(zip(s.T, s.lower, s.upper, s.domain_size)):
-            gap = None if up is None else up - lo
+            gap = None if up is None else (up - lo) / max(abs(up), 1e-300)
             key = f"max: {s.argmax[k]}" if s.envelope else ('' if s.key is None else s.key)
             lines.append(f"{_tex(s.bound)} & {_tex(key)} & {t:g} & "
                          f"{'--' if d is None else d} & {_f(lo)} & {_f(up)} & "
@@ -72,7 +72,7 @@ def latex_results_table(series: list[Series], growth: str = "T") -> str:
 
 def latex_fit_table(fits: dict) -> str:
     """A booktabs ``tabular`` of every fitted model: series, model, parameters ± s.e., AICc, weight."""
-    lines = [r"\begin{tabular}{lllrr}", r"\toprule",
+    lines = [r"\begin{tabular}{p{3.2cm}lp{5.2cm}rp{1.6cm}}", r"\toprule",
              r"series & model & parameters ($\pm$ s.e.) & AICc & weight \\", r"\midrule"]
     first = True
     for label, cmp in fits.items():

@@ -58,7 +58,7 @@ __all__ = ["main", "build_parser", "os_error_message", "EXIT_OK", "EXIT_FAILED",
 EXIT_OK, EXIT_FAILED, EXIT_USAGE, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_PIPE = 0, 1, 2, 3, 130, 141
 
 #: Subcommand modules, in the order ``advbound --help`` lists them.
-COMMANDS = ("inspect", "solve", "study", "report", "fit", "verify", "gamma", "export", "exact")
+COMMANDS = ("inspect", "solve", "study", "report", "fit", "verify", "gamma", "export", "exact", "orbits")
 
 #: Longest message printed; longer ones (a huge repr inside an exception) are cut.
 _MAX_MESSAGE = 2000

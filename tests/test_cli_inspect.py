@@ -88,8 +88,9 @@ def test_positive_bound_sizes(capsys):
     ("0 0\n", ["--set", "T=3"], r"--set given for a table file"),
     ('[instance]\nouter = "or"\nrows = 2\nrow_length = "Tx"\n', [],
      r"f\.toml: \[instance\] row_length: unknown name 'Tx'$"),
-    ('[instance]\nouter = "or"\nrows = 2\nrow_length = 1\nbudget = { sum_squares = 5 }\n', [],
-     r"f\.toml: the budget \(sum t_i\^2 = 5\) allows no time profile$"),
+    ('[instance]\nouter = "or"\nrows = 2\nrow_length = 1\nbudget = { sum_squares = 1 }\n', [],
+     r"f\.toml: the budget \(sum t_i\^2 = 1\) allows no time profile: the smallest sum of t_i\^2 any input "
+     r"has is 2, above 1$"),
 ])
 def test_errors_exit_2(tmp_path, capsys, content, argv, msg):
     """Bad input gives exit code 2 and a single 'advbound: error:' line on stderr."""

@@ -7,6 +7,7 @@
 :mod:`.exactlinalg`   exact Rayleigh quotients and proofs of positive definiteness
 :mod:`.orbitcert`     orbit certificates of interchangeable rows: value, file, acceptance rule
 :mod:`.orbitcheck`    bounds of an orbit certificate in the reduced basis
+:mod:`.orbittable`    an orbit certificate's Γ by pair orbit and input orbit
 :mod:`.iterative`     matrix-free norm bounds for large adversary matrices
 :mod:`.gammainput`    reading a researcher's own Γ (callable or entries file)
 :mod:`.usergamma`     evaluating and improving it

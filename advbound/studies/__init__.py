@@ -16,5 +16,6 @@
 :mod:`.report_tables`  LaTeX, CSV and JSON tables
 :mod:`.report_figures` the figures
 :mod:`.report_summary` the summary text
+:mod:`.orbit_figures`  the figure of ``advbound orbits``
 =====================  ========================================================
 """

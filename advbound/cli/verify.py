@@ -91,12 +91,8 @@ def run(args) -> int:
     desc = cert.metadata.get("description") or "(no description)"
     print(f"certificate {args.certificate}: {desc}; |D| = {len(cert.inputs)}, {len(cert.costs)} positions, "
           f"bound {fl.bound}")
-    if match is not None:
-        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
-        print(f"against {match.label()}: same function ({spec})")
-    print("float check (advbound.quantities):")
-    for name, ok, det in fl.checks:
-        print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+    _print_match(match)
+    _print_checks("float check (advbound.quantities):", fl.checks)
     print(f"  ||Γ|| = {fl.gamma_norm:.12g}")
     for j, (nj, c) in enumerate(zip(fl.position_norms, cert.costs)):
         mark = "  *binding" if j in fl.binding else ""
@@ -159,12 +155,8 @@ def _run_orbit(args, cert, match, safety) -> int:
     n = np.asarray(cert.contents).shape[1]
     print(f"orbit certificate {args.certificate}: {desc}; |D| = {cert.size} in {len(cert.contents)} orbits, "
           f"{n} rows of {len(cert.costs)} positions, {len(cert.gamma)} pair orbits, bound {rep.bound}")
-    if match is not None:
-        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
-        print(f"against {match.label()}: same function ({spec})")
-    print("reduced-basis check (advbound.evidence.orbitcheck):")
-    for name, ok, det in rep.checks:
-        print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+    _print_match(match)
+    _print_checks("reduced-basis check (advbound.evidence.orbitcheck):", rep.checks)
     print(f"  ||Γ|| >= {rep.gamma_lower:.12g}   (Rayleigh quotient of the stored test vector)")
     for j, nj in enumerate(rep.position_norms):
         mark = "  *binding" if j in rep.binding else ""
@@ -181,6 +173,18 @@ def _run_orbit(args, cert, match, safety) -> int:
             print(f"  lower (rounded down) = {rig.lower!r}")
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
     return 0 if verified else 1
+
+
+def _print_match(match) -> None:
+    if match is not None:
+        spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
+        print(f"against {match.label()}: same function ({spec})")
+
+
+def _print_checks(title: str, checks) -> None:
+    print(title)
+    for name, ok, det in checks:
+        print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
 
 
 def _mismatch(args, match) -> int:

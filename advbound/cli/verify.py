@@ -78,16 +78,7 @@ def run(args) -> int:
         rig = verify_rigorous(cert, denominator=args.denominator, safety=safety, method=args.method)
     verified = fl.passed and (rig is None or rig.verified)
     if args.json:
-        out = {"certificate": str(args.certificate), "verified": verified,
-               "lower": rig.lower if rig is not None else fl.lower,
-               "float": fl.to_dict()}
-        if rig is not None:
-            out["lower_exact"] = rig.to_dict()["lower_exact"]
-            out["rigorous"] = rig.to_dict()
-        if match is not None:
-            out["against"] = match.to_dict()
-        print(json.dumps(out, indent=1))
-        return 0 if verified else 1
+        return _print_json(args, verified, rig, match, lower=fl.lower, float=fl.to_dict())
     desc = cert.metadata.get("description") or "(no description)"
     print(f"certificate {args.certificate}: {desc}; |D| = {len(cert.inputs)}, {len(cert.costs)} positions, "
           f"bound {fl.bound}")
@@ -141,16 +132,8 @@ def _run_orbit(args, cert, match, safety) -> int:
         rig = verify_rigorous(dense, denominator=args.denominator, safety=safety, method=args.method)
     verified = rep.passed and (rig is None or rig.verified)
     if args.json:
-        out = {"certificate": str(args.certificate), "kind": "orbits", "verified": verified,
-               "lower": rig.lower if rig is not None else rep.lower, "upper": rep.upper,
-               "checks": [[n, bool(ok), d] for n, ok, d in rep.checks]}
-        if rig is not None:
-            out["lower_exact"] = rig.to_dict()["lower_exact"]
-            out["rigorous"] = rig.to_dict()
-        if match is not None:
-            out["against"] = match.to_dict()
-        print(json.dumps(out, indent=1))
-        return 0 if verified else 1
+        return _print_json(args, verified, rig, match, kind="orbits", lower=rep.lower, upper=rep.upper,
+                           checks=[[n, bool(ok), d] for n, ok, d in rep.checks])
     desc = cert.metadata.get("description") or "(no description)"
     n = np.asarray(cert.contents).shape[1]
     print(f"orbit certificate {args.certificate}: {desc}; |D| = {cert.size} in {len(cert.contents)} orbits, "
@@ -172,6 +155,19 @@ def _run_orbit(args, cert, match, safety) -> int:
             print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
             print(f"  lower (rounded down) = {rig.lower!r}")
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
+    return 0 if verified else 1
+
+
+def _print_json(args, verified, rig, match, *, lower, **fields) -> int:
+    """The one JSON object of ``verify --json``: the exact lower bound replaces the float one with --rigorous."""
+    out = {"certificate": str(args.certificate), "verified": verified,
+           "lower": rig.lower if rig is not None else lower, **fields}
+    if rig is not None:
+        out["lower_exact"] = rig.to_dict()["lower_exact"]
+        out["rigorous"] = rig.to_dict()
+    if match is not None:
+        out["against"] = match.to_dict()
+    print(json.dumps(out, indent=1))
     return 0 if verified else 1
 
 

@@ -92,3 +92,13 @@ def test_rows_refuses_another_solver():
     from advbound.errors import InvalidFunctionError
     with pytest.raises(InvalidFunctionError, match="CLARABEL only"):
         solve(ROWS_3_7, method="rows", solver="SCS")
+
+
+def test_inspect_says_which_program_auto_runs(capsys):
+    """`advbound inspect` names the program `solve` would pick, in text and in --json."""
+    from pathlib import Path
+    inst = str(Path(__file__).resolve().parents[1] / "instances" / "or3_sum_T.toml")
+    assert main(["inspect", inst, "--set", "T=7"]) == 0
+    assert "program (solve --method auto): rows with CLARABEL: 3 interchangeable rows" in capsys.readouterr().out
+    assert main(["inspect", inst, "--set", "T=7", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["auto_method"]["method"] == "rows"

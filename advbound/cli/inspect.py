@@ -72,6 +72,10 @@ def run(args) -> int:
     f, tm, meta = _load(args)
     s = inspect_summary(f, tm, bound=args.bound, max_profiles=None if args.json else _SHOW_PROFILES)
     s.update(_estimates(f, s))
+    if not f.is_constant:
+        from advbound.programs.choose import choose_method
+        c = choose_method(f, args.bound)
+        s["auto_method"] = {"method": c.method, "solver": c.solver, "reason": c.reason}
     if args.json:
         print(json.dumps({"file": args.file, **meta, **s}, sort_keys=False))
         return 0
@@ -144,4 +148,8 @@ def _text(path: str, meta: dict, s: dict, f) -> str:
                      f"{format_seconds(e['seconds'])}{over}")
     if avail is not None:
         lines.append(f"  memory available: {_fmt_bytes(avail)} ({s['memory_available']['source']})")
+    if "auto_method" in s:
+        a = s["auto_method"]
+        lines.append(f"program (solve --method auto): {a['method']}"
+                     + (f" with {a['solver']}" if a["solver"] else "") + f": {a['reason']}")
     return "\n".join(lines)

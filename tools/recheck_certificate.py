@@ -199,12 +199,8 @@ def check_structure(heads):
         raise Refused(f"{shape[0]} inputs: the dense check handles at most {MAX_INPUTS}")
 
 
-def check_function(a):
-    """Alphabet, inputs, outputs and costs; returns (inputs, symbols, output labels, costs)."""
-    fmt = a["format"]
-    if fmt.dtype.kind != "U" or fmt.ndim != 0 or str(fmt) != FORMAT:
-        shown = str(fmt)[:60] if fmt.dtype.kind == "U" and fmt.ndim == 0 else f"a {fmt.dtype} array"
-        raise Refused(f"format is {shown!r}, expected {FORMAT!r}")
+def check_alphabet(a):
+    """alphabet: a non-empty 1-d string array of distinct single characters."""
     alph = a["alphabet"]
     need_kind(alph, "alphabet", "U", "strings", ndim=1)
     alphabet = [str(s) for s in alph]
@@ -217,6 +213,29 @@ def check_function(a):
         if s in seen:
             raise Refused(f"alphabet[{seen[s]}] and alphabet[{i}] are both {s!r} (symbols must be distinct)")
         seen[s] = i
+    return alphabet
+
+
+def check_costs(a, n, of, rule):
+    """costs: n finite floats > 0 (``of`` and ``rule`` word the count message)."""
+    c = a["costs"]
+    need_kind(c, "costs", "f", "floats", ndim=1)
+    if c.shape[0] != n:
+        raise Refused(f"{c.shape[0]} costs for {of} {n} ({rule})")
+    costs = c.astype(np.float64)
+    for j, v in enumerate(costs):
+        if not (math.isfinite(v) and v > 0):
+            raise Refused(f"costs[{j}] = {float(v)!r} (costs must be finite and > 0)")
+    return costs
+
+
+def check_function(a):
+    """Alphabet, inputs, outputs and costs; returns (inputs, symbols, output labels, costs)."""
+    fmt = a["format"]
+    if fmt.dtype.kind != "U" or fmt.ndim != 0 or str(fmt) != FORMAT:
+        shown = str(fmt)[:60] if fmt.dtype.kind == "U" and fmt.ndim == 0 else f"a {fmt.dtype} array"
+        raise Refused(f"format is {shown!r}, expected {FORMAT!r}")
+    alphabet = check_alphabet(a)
     inp = a["inputs"]
     need_kind(inp, "inputs", "U", "strings", ndim=1)
     inputs = [str(s) for s in inp]
@@ -246,14 +265,7 @@ def check_function(a):
         raise Refused(f"{len(outputs)} outputs for {len(inputs)} inputs (one output per input)")
     labels = {y: k for k, y in enumerate(sorted(set(outputs)))}
     out = np.array([labels[y] for y in outputs], dtype=np.int64)
-    c = a["costs"]
-    need_kind(c, "costs", "f", "floats", ndim=1)
-    if c.shape[0] != n:
-        raise Refused(f"{c.shape[0]} costs for inputs of length {n} (one cost per position)")
-    costs = c.astype(np.float64)
-    for j, v in enumerate(costs):
-        if not (math.isfinite(v) and v > 0):
-            raise Refused(f"costs[{j}] = {float(v)!r} (costs must be finite and > 0)")
+    costs = check_costs(a, n, "inputs of length", "one cost per position")
     return inputs, outputs, symbols, out, costs
 
 
@@ -444,11 +456,7 @@ def accept_orbits(path, heads):
     fmt = a["format"]
     if fmt.dtype.kind != "U" or fmt.ndim != 0 or str(fmt) != ORBIT_FORMAT:
         raise Refused(f"format is {str(fmt)[:60]!r}, expected {ORBIT_FORMAT!r}")
-    alph = a["alphabet"]
-    need_kind(alph, "alphabet", "U", "strings", ndim=1)
-    alphabet = [str(s) for s in alph]
-    if not alphabet or any(len(s) != 1 for s in alphabet) or len(set(alphabet)) != len(alphabet):
-        raise Refused("alphabet must be distinct single characters, at least one")
+    alphabet = check_alphabet(a)
     lt = a["letters"]
     need_kind(lt, "letters", "U", "strings", ndim=1)
     letters = [str(s) for s in lt]
@@ -485,14 +493,7 @@ def accept_orbits(path, heads):
     size = sum(multiset_count(c) for c in contents)
     if size > MAX_INPUTS:
         raise Refused(f"{size} inputs: the dense check handles at most {MAX_INPUTS}")
-    c = a["costs"]
-    need_kind(c, "costs", "f", "floats", ndim=1)
-    if c.shape[0] != width:
-        raise Refused(f"{c.shape[0]} costs for letters of length {width} (one cost per row position)")
-    row_costs = c.astype(np.float64)
-    for j, v in enumerate(row_costs):
-        if not (math.isfinite(v) and v > 0):
-            raise Refused(f"costs[{j}] = {float(v)!r} (costs must be finite and > 0)")
+    row_costs = check_costs(a, width, "letters of length", "one cost per row position")
     meta, bound = check_metadata(a)
     pk = a["pair_keys"]
     need_kind(pk, "pair_keys", "iu", "integers", ndim=3)

@@ -92,21 +92,7 @@ def run(args) -> int:
     if fl.upper is not None:
         print(f"  upper bound (repaired dual witness, float) = {fl.upper:.12g}")
     if rig is not None:
-        print("rigorous check (exact rationals):")
-        print(f"  Γ rounded to denominator Q = {rig.denominator}; equal-output entries zeroed exactly "
-              f"(largest in file {rig.equal_output_mass:.3g})")
-        print(f"  Rayleigh quotient vᵀΓv/vᵀv = {float(rig.rayleigh):.12g} (exact rational, <= ||Γ_q||)")
-        print(f"  safety scaling s = {rig.safety:g}; common scale K = {float(rig.scale):.12g}")
-        for p in rig.positions:
-            print(f"  [{'ok' if p.proved else 'FAIL'}] position {p.position + 1}: ||Γ_q∘Δ|| = {p.float_norm:.12g}"
-                  f" < {float(p.bound):.12g} ({p.method}; {p.detail}; {p.seconds:.2f} s)")
-        for name, ok, det in rig.checks:
-            if name != "constraints":
-                print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
-        if rig.lower_exact is not None:
-            print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
-            print(f"  lower (rounded down) = {rig.lower!r}")
-        print(f"  time {rig.seconds:.2f} s ({rig.method}, backend {rig.backend})")
+        _print_rigorous("rigorous check (exact rationals):", rig)
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
     return 0 if verified else 1
 
@@ -148,12 +134,7 @@ def _run_orbit(args, cert, match, safety) -> int:
     if rep.upper is not None:
         print(f"  upper bound (weak duality from the stored reduced dual, float) = {rep.upper:.12g}")
     if rig is not None:
-        print("rigorous check of the expanded Γ (exact rationals):")
-        for name, ok, det in rig.checks:
-            print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
-        if rig.lower_exact is not None:
-            print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
-            print(f"  lower (rounded down) = {rig.lower!r}")
+        _print_rigorous("rigorous check of the expanded Γ (exact rationals):", rig)
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")
     return 0 if verified else 1
 
@@ -169,6 +150,24 @@ def _print_json(args, verified, rig, match, *, lower, **fields) -> int:
         out["against"] = match.to_dict()
     print(json.dumps(out, indent=1))
     return 0 if verified else 1
+
+
+def _print_rigorous(title: str, rig) -> None:
+    print(title)
+    print(f"  Γ rounded to denominator Q = {rig.denominator}; equal-output entries zeroed exactly "
+          f"(largest in file {rig.equal_output_mass:.3g})")
+    print(f"  Rayleigh quotient vᵀΓv/vᵀv = {float(rig.rayleigh):.12g} (exact rational, <= ||Γ_q||)")
+    print(f"  safety scaling s = {rig.safety:g}; common scale K = {float(rig.scale):.12g}")
+    for p in rig.positions:
+        print(f"  [{'ok' if p.proved else 'FAIL'}] position {p.position + 1}: ||Γ_q∘Δ|| = {p.float_norm:.12g}"
+              f" < {float(p.bound):.12g} ({p.method}; {p.detail}; {p.seconds:.2f} s)")
+    for name, ok, det in rig.checks:
+        if name != "constraints":
+            print(f"  [{'ok' if ok else 'FAIL'}] {name}: {det}")
+    if rig.lower_exact is not None:
+        print(f"  lower_exact = {rig.lower_exact.numerator}/{rig.lower_exact.denominator}")
+        print(f"  lower (rounded down) = {rig.lower!r}")
+    print(f"  time {rig.seconds:.2f} s ({rig.method}, backend {rig.backend})")
 
 
 def _print_match(match) -> None:

@@ -156,3 +156,18 @@ def test_solved_certificate_round_trip_and_tampering(tmp_path, capsys):
     assert main(["verify", str(tampered)]) == 1
     assert "claimed_lower" in capsys.readouterr().out
     assert recheck(tampered).returncode == 1
+
+
+def test_dual_of_another_basis_convention_is_not_matched(tmp_path, capsys):
+    """A stored dual refers to one convention of the blocks; a file naming another fails dual_matches (exit 1)."""
+    inst = ROOT / "instances" / "or3_sum_T.toml"
+    path = tmp_path / "or3.npz"
+    assert main(["solve", str(inst), "--set", "T=5", "--save-certificate", str(path)]) == 0
+    z = dict(np.load(path))
+    meta = json.loads(str(z["metadata"]))
+    meta["basis"] = "some other convention"
+    z["metadata"] = np.array(json.dumps(meta))
+    write(tmp_path / "other.npz", z)
+    capsys.readouterr()
+    assert main(["verify", str(tmp_path / "other.npz")]) == 1
+    assert "[FAIL] dual_matches" in capsys.readouterr().out

@@ -25,7 +25,11 @@ from advbound.functions.rowfamily import RowFamily
 from advbound.functions.tableaux import (Shape, column_antisymmetrise, multinomial, partitions, row_symmetrise,
                                          semistandard_tableaux, standard_tableaux_count)
 
-__all__ = ["Block", "RowBasis", "row_basis", "check_dimensions", "expand_gamma", "pair_key"]
+__all__ = ["Block", "RowBasis", "row_basis", "check_dimensions", "expand_gamma", "pair_key", "BASIS_VERSION"]
+
+#: The convention of the blocks (order of rows, unit-norm vectors).  A stored reduced dual refers to
+#: the blocks of one convention; orbit certificates record it as ``metadata["basis"]``.
+BASIS_VERSION = "representative-set/1 (unit-norm block rows)"
 
 log = logging.getLogger("advbound")
 

@@ -66,7 +66,7 @@ import scipy.sparse as sp
 
 from advbound.errors import InvalidFunctionError, SolverError
 from advbound.evidence.orbitcheck import DENSE_CHECK_LIMIT, cone_keys, sides, verify_orbit_certificate
-from advbound.functions.rowbasis import RowBasis, row_basis
+from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
 __all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
@@ -291,7 +291,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     meta = {"description": fam.description, "bound": bound, "method": "rows",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.raw_status,
                        "iterations": pt.iterations, "time": float(pt.seconds)},
-            "reduced": dict(prog.sizes(), build_time=prog.build_time)}
+            "reduced": dict(prog.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
     cert = orbit_certificate(prog, gamma, rho, pt.duals, meta)
     rep = verify_orbit_certificate(cert, dense_limit=dense_check_limit, basis=prog.basis)
     cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))

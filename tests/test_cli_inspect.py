@@ -113,3 +113,26 @@ def test_missing_file_subprocess(tmp_path):
                        capture_output=True, text=True, timeout=120)
     assert r.returncode == 2 and r.stderr.strip().count("\n") == 0
     assert "no such file" in r.stderr
+
+
+def test_row_length_cut_is_counted(tmp_path, capsys):
+    """t = k^0.3, Σ t_i² ≤ 5, OR of 3 rows: row_length T - 2 keeps 184 of the 304 allowed inputs, so it drops
+    120; inspect prints the count and --json has it under row_length_cut (the 304 and 184 of
+    tests/test_budgets.py, a user's report, recomputed there by the builder)."""
+    p = tmp_path / "k03.toml"
+    p.write_text('[instance]\nouter = "or"\nrows = 3\ninner = "position_search"\nrow_length = "T - 2"\n'
+                 'time = { alpha = "0.3" }\nbudget = { at_most = "T" }\n[grid]\nT = [5]\n')
+    code, out, err = run(capsys, str(p), "--json")
+    d = json.loads(out)
+    assert code == 0 and d["domain_size"] == 184
+    assert d["row_length_cut"] == {"rows": [{"row": i, "positions": [4, 6]} for i in (1, 2, 3)],
+                                   "inputs": 184, "allowed": 304, "dropped": 120}
+    code, out, err = run(capsys, str(p))
+    assert ("row_length cuts allowed time profiles: it leaves out 120 of the 304 inputs the budget allows "
+            "(row 1: positions 4..6; row 2: positions 4..6; row 3: positions 4..6)") in out
+
+
+def test_no_row_length_cut_for_the_sqrt_rows(capsys):
+    """For t = √k and Σ k_i = T the length T - 2 is exactly what the budget allows: nothing is cut."""
+    code, out, err = run(capsys, OR3, "--set", "T=7", "--json")
+    assert code == 0 and json.loads(out)["row_length_cut"] is None

@@ -33,12 +33,13 @@ def register(subparsers) -> None:
 
 
 def _load(args):
-    from advbound.functions.instance import build_instance, grid_points, load_instance, parse_params, time_model_of
+    from advbound.functions.instance import (build_instance, grid_points, load_instance, parse_params,
+                                             row_length_cut, time_model_of)
     from advbound.functions.tablefile import read_table
 
     params = parse_params(args.params)
     if args.file.endswith(".toml"):
-        spec = load_instance(args.file)
+        spec = load_instance(args.file, check_points=not params)
         note = ""
         if spec.grid:
             points = grid_points(spec)
@@ -48,11 +49,13 @@ def _load(args):
                 note = "unset parameters from the first grid point"
             params = {k: params.get(k, v) for k, v in points[0].items()} | params
         f = build_instance(spec, params)
-        return f, time_model_of(spec, params), {"instance": spec.name, "params": params, "params_note": note}
+        cut = row_length_cut(spec, params, inputs=f.size)
+        return f, time_model_of(spec, params), {"instance": spec.name, "params": params, "params_note": note,
+                                                "row_length_cut": cut}
     if params:
         from advbound.errors import InvalidInstanceError
         raise InvalidInstanceError(f"{args.file}: --set given for a table file (it has no parameters)")
-    return read_table(args.file), None, {"instance": None, "params": {}, "params_note": ""}
+    return read_table(args.file), None, {"instance": None, "params": {}, "params_note": "", "row_length_cut": None}
 
 
 def _estimates(f, s: dict) -> dict:
@@ -131,6 +134,13 @@ def _text(path: str, meta: dict, s: dict, f) -> str:
         if shown < total:
             lines.append(f"  ... {total - shown} more (use --json for all)")
         lines.append("sum t_i^2: " + ", ".join(f"{k}: {v}" for k, v in s["sum_squares"].items()))
+    cut = meta.get("row_length_cut")
+    if cut:
+        where = "; ".join(f"row {c['row']}: positions {c['positions'][0]}..{c['positions'][1]}" for c in cut["rows"])
+        lost = (f"{cut['dropped']} of the {cut['allowed']} inputs the budget allows" if cut["allowed"] is not None
+                else "inputs (the uncut domain is too large to count)")
+        lines.append(f"row_length cuts allowed time profiles: it leaves out {lost} ({where}); omit row_length "
+                     "to keep them")
     z = s["sdp"]
     name = "ADV±" if z["bound"] == "general" else "ADV (positive weights)"
     if z["form"] == "constant":

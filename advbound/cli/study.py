@@ -5,6 +5,7 @@ Typical use::
     advbound study                                   # instances/studies/default.toml of this checkout
     advbound study instances/studies/default.toml --jobs 2
     advbound study my.toml --scheduler tcp://127.0.0.1:8786 --retry-failed --quiet
+    advbound study my.toml --set T=4,5 --set rows=2     # only these grid points; the report covers the store
     advbound study my.toml --jobs 2 & advbound study my.toml --jobs 2    # two sweeps share one store
 
 Exit codes: 0 every point stored with a success status (or left to another live sweep);
@@ -28,24 +29,32 @@ def register(subparsers) -> None:
                     "yet in its result store, one committed row per point, then write the report. "
                     "Without FILE, runs instances/studies/default.toml of the checkout advbound was "
                     "imported from.")
-    p.add_argument("file", metavar="FILE", nargs="?", default=None, help="study TOML file")
+    p.add_argument("file", metavar="FILE", nargs="?", default=None,
+                   help="study TOML file (default: instances/studies/default.toml of the checkout)")
+    p.add_argument("--set", dest="params", action="append", default=[], metavar="NAME=VALUE",
+                   help="run only the grid points with this value of a grid parameter; NAME=V1,V2 for several "
+                        "values, repeatable for several parameters (default: every grid point); the store "
+                        "keeps every point and the report covers the whole store")
     p.add_argument("--store", metavar="PATH", default=None,
                    help="result store (default: [study] store, else studies/<name>.sqlite)")
     p.add_argument("--certificates", metavar="DIR", default=None,
                    help="certificate directory (default: the store path without .sqlite plus -certificates)")
     p.add_argument("--jobs", type=int, default=1, metavar="N", help="local worker processes (default 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                   help="submit the points to this dask.distributed scheduler instead")
+                   help="submit the points to this dask.distributed scheduler instead (default: none, "
+                        "the points run locally with --jobs)")
     p.add_argument("--retry-failed", action="store_true",
-                   help="also recompute points whose solve failed (not points with invalid input)")
+                   help="also recompute points whose solve failed (not points with invalid input; "
+                        "default: keep them)")
     p.add_argument("--lease", type=float, default=None, metavar="SECONDS",
                    help="lease on a point being computed, renewed every third of it; another sweep on the "
                         "same store takes the point over once it expires (default 60)")
     p.add_argument("--wait", action="store_true",
                    help="wait for points another live sweep is computing, and take over those whose lease "
                         "expires (default: leave them to it)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--no-report", action="store_true", help="do not write the report afterwards")
+    p.add_argument("--quiet", action="store_true", help="no progress bar (default: a progress bar on stderr)")
+    p.add_argument("--no-report", action="store_true",
+                   help="do not write the report afterwards (default: write it)")
     p.add_argument("--out", metavar="DIR", default=None,
                    help="report directory (default: [study] report, else reports/<name>)")
     p.set_defaults(run=run)
@@ -151,6 +160,7 @@ def run(args) -> int:
     import math
 
     from advbound.errors import AdvboundError
+    from advbound.functions.grid import parse_choices
     from advbound.studies.store import DEFAULT_LEASE, Store
     from advbound.studies.study import default_study_path, load_study, plan, run_study
 
@@ -159,22 +169,25 @@ def run(args) -> int:
     lease = DEFAULT_LEASE if args.lease is None else args.lease
     if not (math.isfinite(lease) and lease > 0):
         raise AdvboundError(f"--lease must be a positive number of seconds, got {args.lease}")
+    choices = parse_choices(getattr(args, "params", None))
     path = args.file or default_study_path()
     study = load_study(path, store=args.store, certificates=args.certificates, report=args.out)
+    points = plan(study, choices=choices)
     progress = None if args.quiet else TqdmProgress(study.name)
     try:
         summary = run_study(study, jobs=args.jobs, scheduler=args.scheduler, retry_failed=args.retry_failed,
-                            progress=progress, lease=lease, wait=args.wait)
+                            progress=progress, lease=lease, wait=args.wait, points=points)
     finally:
         if progress is not None:
             progress.close()
-    points = plan(study)
     with Store(study.store, readonly=True) as st:
         states = st.states()
         invalid_rows = [r for r in (st.get(p.run_key) for p in points
                                     if getattr(states.get(p.run_key), "state", None) == "invalid") if r]
     kept = [p for p in points if getattr(states.get(p.run_key), "state", None) == "failed"]
-    print(f"study {study.name}: {summary.planned} point(s); {summary.skipped} already stored, "
+    subset = (" chosen by --set " + " ".join(f"{k}={','.join(str(v) for v in vals)}" for k, vals in choices.items())
+              if choices else "")
+    print(f"study {study.name}: {summary.planned} point(s){subset}; {summary.skipped} already stored, "
           f"{summary.solved} solved now, {summary.failed} failed now"
           + (f", {len(invalid_rows)} with invalid input" if invalid_rows else "") + f"; store {study.store}")
     for row in summary.rows:

@@ -38,6 +38,8 @@ Schema (see ``docs/instances.md`` for the full description)::
 
     [grid]
     T = { from = 4, to = 12 }          # or a list [4, 6, 8], or one value
+    where = "T >= 6"                   # optional condition on the points
+    # points = [{T = 6, rows = 3}, ...] lists points; zip = [["T", "rows"]] reads lists side by side
 
 Expressions are numbers or strings over numbers, grid names, ``+ - * / // % **``,
 parentheses and ``min max sqrt log ceil floor abs``; they are bounded in length, depth and
@@ -66,12 +68,13 @@ from typing import Mapping
 from advbound.errors import AdvboundError, InvalidInstanceError
 from advbound.functions.composition import compose
 from advbound.functions.expressions import MAX_EXPRESSION_CHARS, MAX_EXPRESSION_DEPTH, MAX_INT_BITS  # noqa: F401
-from advbound.functions.expressions import _FUNCS, _canon_number, _name, _short, evaluate, parse_params
+from advbound.functions.expressions import _canon_number, _name, _short, evaluate, parse_params
 from advbound.functions.function import PartialFunction
-from advbound.functions.grid import (MAX_GRID_POINTS, _grid_values, _params, _source, grid_points, grid_size,
-                                     iter_grid_points, point_label)
+from advbound.functions.grid import (MAX_GRID_POINTS, _params, _source, check_choices,  # noqa: F401
+                                     chosen, describe_factors, grid_points, grid_size, iter_grid_points,
+                                     parse_choices, parse_grid, point_label)
 from advbound.functions.outer import named_function
-from advbound.functions.resolution import _budget, _load_table, _time_model, resolved
+from advbound.functions.resolution import _budget, _load_table, _time_model, directions, resolved, row_length_cuts
 from advbound.functions.searchrows import position_search_row
 from advbound.functions.tablefile import read_table, read_text
 
@@ -88,8 +91,12 @@ __all__ = [
     "spec_key",
     "build_instance",
     "time_model_of",
+    "row_length_cut",
     "load_function",
     "parse_params",
+    "parse_choices",
+    "check_choices",
+    "chosen",
     "evaluate",
 ]
 
@@ -131,6 +138,9 @@ class InstanceSpec:
     where : str or None
         ``[grid] where``: a condition on the parameters (``"rows <= T / 2 + 2"``); only the points of
         the product that meet it are grid points.
+    factors : tuple
+        The ``(names, rows)`` factors whose product gives the grid points (see :mod:`.grid`): one per
+        plain key, one per ``zip`` group, one for ``points``.  Empty: one factor per ``grid`` key.
     """
 
     name: str
@@ -142,6 +152,7 @@ class InstanceSpec:
     tables: dict
     base_dir: str = "."
     where: str | None = None
+    factors: tuple = ()
 
     @property
     def parameters(self) -> tuple[str, ...]:
@@ -207,21 +218,13 @@ def parse_instance(text: str, source: str = "<string>", base_dir: str = ".", *,
     description = inst.get("description", "")
     if not isinstance(description, str):
         raise InvalidInstanceError(f"{source}: [instance] description: must be a string")
-    grid_raw = dict(grid_raw)
-    where = grid_raw.pop("where", None)
-    if where is not None and not isinstance(where, str):
-        raise InvalidInstanceError(f"{source}: [grid] where: must be a condition string such as 'rows <= T / 2'")
-    for key in grid_raw:
-        if not key.isidentifier() or key in _FUNCS:
-            raise InvalidInstanceError(f"{source}: [grid] {_name(key)}: not usable as a parameter name")
-    grid = {key: _grid_values(value, f"{source}: [grid] {key}") for key, value in grid_raw.items()}
+    grid, factors, where = parse_grid(grid_raw, source)
     spec = InstanceSpec(name=name, path=source, description=description, instance=inst, grid=grid,
-                        study=study, tables=tables, base_dir=base_dir, where=where)
+                        study=study, tables=tables, base_dir=base_dir, where=where, factors=factors)
     count = grid_size(spec)
     if count > max_points:
-        sizes = " x ".join(f"{k}: {len(v)}" for k, v in grid.items())
-        raise InvalidInstanceError(f"{source}: [grid] has {count:,} points ({sizes} values), more than "
-                                   f"{max_points:,}; split the grid or pass max_points")
+        raise InvalidInstanceError(f"{source}: [grid] has {count:,} points ({describe_factors(factors)} values), "
+                                   f"more than {max_points:,}; split the grid or pass max_points")
     if check_points:
         for params in iter_grid_points(spec):
             resolved(spec, params)
@@ -301,7 +304,11 @@ def build_instance(spec: InstanceSpec, params: Mapping | None = None, *,
         instance cannot be built; the message names the file and the grid point.
     """
     r = resolved(spec, params)
-    p = _params(spec, params)
+    return _build(spec, r, _params(spec, params), max_inputs)
+
+
+def _build(spec: InstanceSpec, r: dict, p: dict, max_inputs) -> PartialFunction:
+    """The function of the resolved table ``r`` at the checked grid point ``p`` (see :func:`build_instance`)."""
     src = _source(spec, p)
     tag = f" [{point_label(p)}]" if p else ""
     try:
@@ -316,22 +323,72 @@ def build_instance(spec: InstanceSpec, params: Mapping | None = None, *,
     except InvalidInstanceError:
         raise
     except AdvboundError as e:
-        raise InvalidInstanceError(f"{src}: {e}") from None
+        err = InvalidInstanceError(f"{src}: {e}")
+        err.fix = _budget_fix(spec, p, str(e))
+        raise err from None
     if desc is None:  # generated description: derive the tagged copy (runs the checks once more)
         f = dataclasses.replace(f, description=f"{spec.name}: {f.description}{tag}")
     return f
+
+
+def _budget_fix(spec: InstanceSpec, p: dict, text: str) -> str | None:
+    """``"raise T or lower rows"`` for a budget that allows no profile at grid point ``p`` because every
+    input's sum of squared times is above it (the opposite when every sum is below it); else ``None``."""
+    budget = spec.instance.get("budget")
+    if not p or "allows no time profile" not in text or not isinstance(budget, dict):
+        return None
+    expr = budget.get("sum_squares", budget.get("at_most"))
+    up = True if "the smallest sum" in text else False if "the largest sum" in text else None
+    if expr is None or up is None:
+        return None
+    moves = [directions(expr, p, up)]
+    if "rows" in spec.instance:
+        moves.append(directions(spec.instance["rows"], p, not up))
+    said = list(dict.fromkeys(m for part in moves if part for m in part.split(" or ")))
+    return " or ".join(said) or None
+
+
+def row_length_cut(spec: InstanceSpec, params: Mapping | None = None, *, inputs: int | None = None,
+                   max_inputs: int | None | str = "default") -> dict | None:
+    """How many inputs a written ``row_length`` leaves out where it cuts allowed time profiles.
+
+    ``None`` when ``[instance] row_length`` cuts no row short of the positions the budget allows (see
+    the warning of :func:`resolved`).  Otherwise ``{"rows": [{"row": 1, "positions": [4, 6]}, ...],
+    "inputs": n, "allowed": N, "dropped": N - n}``: the cut positions of each row (1-based, first and
+    last), the inputs with the written lengths (``inputs``, when already known) and without the cut.
+    ``allowed`` and ``dropped`` are ``None`` when the uncut function is too large to build
+    (``max_inputs``, as for :func:`build_instance`).
+    """
+    p = _params(spec, params)
+    cuts = row_length_cuts(spec, p)
+    if not cuts:
+        return None
+    r = resolved(spec, p)
+    if inputs is None:
+        inputs = _build(spec, r, p, max_inputs).size
+    wide = dict(r, inner=[dict(d) for d in r["inner"]])
+    for i, _, u in cuts:
+        wide["inner"][i]["position_search"] = u
+    try:
+        allowed = _build(spec, wide, p, max_inputs).size
+    except AdvboundError:
+        allowed = None
+    return {"rows": [{"row": i + 1, "positions": [m + 1, u]} for i, m, u in cuts], "inputs": inputs,
+            "allowed": allowed, "dropped": None if allowed is None else allowed - inputs}
 
 
 def load_function(path: str | os.PathLike, params: Mapping | None = None, *,
                   max_inputs: int | None | str = "default") -> PartialFunction:
     """Load a function from an instance file (``.toml``) or a table file (any other suffix).
 
-    For an instance file with a grid and ``params=None``, the FIRST grid point is used.
+    For an instance file with a grid and ``params=None``, the FIRST grid point is used, and every grid
+    point is checked as :func:`load_instance` does; with ``params`` only that point is resolved, so
+    one point of a file can be used while another point of its grid is invalid.
     ``max_inputs`` is passed to :func:`build_instance`.
     """
     path = os.fspath(path)
     if path.endswith(".toml"):
-        spec = load_instance(path)
+        spec = load_instance(path, check_points=params is None)
         if params is None:
             params = next(iter_grid_points(spec))
             if params:

@@ -18,7 +18,7 @@ import warnings
 from typing import TYPE_CHECKING, Mapping
 
 from advbound.errors import AdvboundError, AdvboundWarning, InvalidInstanceError
-from advbound.functions.expressions import _as_int, _canon_number, _int_of, _name, _short, evaluate
+from advbound.functions.expressions import _as_int, _canon_number, _name, _short, evaluate
 from advbound.functions.function import PartialFunction
 from advbound.functions.grid import _params, _source
 from advbound.functions.outer import NAMED_FUNCTIONS, named_function
@@ -29,7 +29,7 @@ from advbound.functions.timemodel import Budget, TimeModel
 if TYPE_CHECKING:
     from advbound.functions.instance import InstanceSpec
 
-__all__ = ["resolved"]
+__all__ = ["resolved", "row_length_cuts", "fix_hint", "directions"]
 
 log = logging.getLogger("advbound")
 
@@ -38,6 +38,22 @@ log = logging.getLogger("advbound")
 # Resolution: every expression evaluated, every shorthand expanded
 # ---------------------------------------------------------------------------------------------
 def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
+    """The ``[instance]`` table with every expression evaluated for ``params``, in canonical form.
+
+    See :func:`_resolved` for the form.  An integer field that falls below its least value at a grid
+    point (``row_length = "T - 2"`` at ``T = 2``) raises an error whose ``fix`` attribute says what
+    to change (:func:`fix_hint`); studies store it with the message.
+    """
+    try:
+        return _resolved(spec, params)
+    except InvalidInstanceError as err:
+        cond = getattr(err, "fix_condition", None)
+        if cond is not None and getattr(err, "fix", None) is None:
+            err.fix = fix_hint(cond[0], dict(params or {}), cond[1], getattr(spec, "where", None))
+        raise
+
+
+def _resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
     """The ``[instance]`` table with every expression evaluated for ``params``, in canonical form.
 
     Returns plain JSON-able values: ``name``, ``description``, ``rows``, ``outer`` (a table),
@@ -129,6 +145,58 @@ def resolved(spec: InstanceSpec, params: Mapping | None = None) -> dict:
             "inner": inner, "time": time, "budget": budget, "max_ones": max_ones}
 
 
+def _int_of(expr, p, where: str, lo: int | None = None) -> int:
+    """Evaluate ``expr`` at ``p`` as an integer of at least ``lo``; when it falls below ``lo`` the error
+    carries ``fix_condition = (expr, lo)`` for :func:`resolved` to turn into a fix."""
+    value = evaluate(expr, p, where)
+    try:
+        return _as_int(value, where, lo, expr)
+    except InvalidInstanceError as err:
+        if lo is not None and isinstance(expr, str) and value < lo:
+            err.fix_condition = (expr, lo)
+        raise
+
+
+def directions(expr, params: Mapping, up: bool = True) -> str:
+    """``"raise T or lower rows"``: how to change each parameter to make ``expr`` larger (``up``) or smaller.
+
+    Found by evaluating ``expr`` with each parameter raised by 1; parameters it does not depend on
+    are left out (``""`` when none is left).
+
+    >>> directions("T - rows + 1", {"T": 4, "rows": 5})
+    'raise T or lower rows'
+    """
+    try:
+        base = evaluate(expr, params)
+    except AdvboundError:
+        return ""
+    said = []
+    for name in params:
+        try:
+            moved = evaluate(expr, {**params, name: params[name] + 1})
+        except AdvboundError:
+            continue
+        if moved != base:
+            said.append(f"{'raise' if (moved > base) == up else 'lower'} {name}")
+    return " or ".join(said)
+
+
+def fix_hint(expr, params: Mapping, lo, where: str | None = None) -> str | None:
+    """What to change when ``expr`` is below ``lo`` at the grid point ``params``: the parameters to move
+    (:func:`directions`) and the ``[grid] where`` condition that leaves such points out.
+
+    >>> fix_hint("T - 2", {"T": 2, "rows": 3}, 1)
+    'raise T, or leave such points out of the grid with [grid] where = "T - 2 >= 1"'
+    """
+    move = directions(expr, params)
+    if not move:
+        return None
+    cond = f"{expr} >= {lo}"
+    keep = (f"add \"and {cond}\" to [grid] where" if where else f"leave such points out of the grid with "
+            f"[grid] where = \"{cond}\"")
+    return f"{move}, or {keep}"
+
+
 def _shorten_rows(inner: list[dict], time, budget: dict, src: str) -> None:
     """Cut position-search rows in ``inner`` (in place) to the positions the budget can use."""
     lengths = [d.get("position_search") for d in inner]
@@ -155,18 +223,34 @@ _SHORTENED: set = set()
 DERIVED_LENGTH = 10 ** 9
 
 
-def _warn_cut_rows(inner: list[dict], time, budget: dict, src: str) -> None:
-    """Warn (once per file, point and row) when a given ``row_length`` leaves out positions the budget allows."""
+def _cut_rows(inner: list[dict], time, budget: dict) -> list[tuple[int, int, int]]:
+    """``(row index, written length, usable length)`` of each position-search row shorter than the
+    positions the budget allows (``[]`` when none is, or when the budget bounds nothing)."""
     lengths = [d.get("position_search") for d in inner]
     if not any(m is not None for m in lengths):
-        return
+        return []
     try:
         models = [_time_model(t) for t in time] if isinstance(time, list) else [_time_model(time)] * len(inner)
         usable = usable_row_lengths([None if m is None else DERIVED_LENGTH for m in lengths], models, _budget(budget))
     except AdvboundError:
-        return
-    cut = [(i, m, u) for i, (m, u) in enumerate(zip(lengths, usable))
-           if m is not None and u is not None and u != DERIVED_LENGTH and u > m]
+        return []
+    return [(i, m, u) for i, (m, u) in enumerate(zip(lengths, usable))
+            if m is not None and u is not None and u != DERIVED_LENGTH and u > m]
+
+
+def row_length_cuts(spec: InstanceSpec, params: Mapping | None = None) -> list[tuple[int, int, int]]:
+    """The rows a written ``row_length`` cuts short of the positions the budget allows, at ``params``:
+    ``(row index, written length, usable length)`` each (0-based row index); ``[]`` without a
+    ``row_length`` or a budget."""
+    r = resolved(spec, params)
+    if "row_length" not in spec.instance or r["budget"] is None:
+        return []
+    return _cut_rows(r["inner"], r["time"], r["budget"])
+
+
+def _warn_cut_rows(inner: list[dict], time, budget: dict, src: str) -> None:
+    """Warn (once per file, point and row) when a given ``row_length`` leaves out positions the budget allows."""
+    cut = _cut_rows(inner, time, budget)
     note = ("cut", src, tuple(cut))
     if cut and note not in _SHORTENED:
         _SHORTENED.add(note)

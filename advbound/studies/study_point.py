@@ -21,7 +21,7 @@ from advbound import status as _status
 from advbound.errors import AdvboundError
 from advbound.studies.store import (BOUND_SLACK, ERROR_STATUS, LeaseHolder, Store, StoredRow, make_row,
                                     package_versions)
-from advbound.studies.study_spec import EXACT_KIND, Point, StudySpec, _one_line, solver_settings
+from advbound.studies.study_spec import EXACT_KIND, Point, StudySpec, invalid_message, solver_settings
 
 __all__ = ["solve_point"]
 
@@ -55,7 +55,7 @@ def _compute(task: dict) -> dict:
     try:
         f = build_instance(task["instance"], task["params"])
     except AdvboundError as err:
-        return {"ok": False, "invalid": True, "error": _one_line(err)}
+        return {"ok": False, "invalid": True, "error": invalid_message(err)}
     if task.get("kind") == EXACT_KIND:
         return {"ok": True, "exact": _solve_exact(f, s).to_dict()}
     from advbound.programs.solve import solve

@@ -29,7 +29,7 @@ from advbound.programs.solve import METHODS
 from advbound.studies.store import run_key
 
 __all__ = ["StudySpec", "Point", "load_study", "default_study_path", "plan", "solver_settings", "exact_settings",
-           "study_meta", "KIND", "EXACT_KIND", "EXACT_DEFAULTS", "STUDY_KEYS"]
+           "study_meta", "invalid_message", "KIND", "EXACT_KIND", "EXACT_DEFAULTS", "STUDY_KEYS"]
 
 #: The kind of the rows of adversary bounds (ADV± and ADV).
 KIND = "adversary"
@@ -353,26 +353,37 @@ def _invalid_key(study: StudySpec, params: dict) -> str:
     return hashlib.sha256(json.dumps(doc, sort_keys=True, default=str).encode()).hexdigest()
 
 
-def plan(study: StudySpec, api=None) -> list[Point]:
+def plan(study: StudySpec, api=None, *, choices=None) -> list[Point]:
     """Every point of the study in a fixed order: grid points (in :func:`grid_points` order) × (bounds,
     then the exact requests of :func:`exact_settings`).
 
+    ``choices`` (``{"T": [4, 5]}``, from ``advbound study --set T=4,5``; see
+    :func:`advbound.functions.grid.parse_choices`) keeps only the grid points with one of the chosen
+    values of each parameter named; a name the grid lacks, a value no grid point has, or a choice
+    that leaves no grid point is refused with one line.
+
     A grid point whose instance cannot be resolved (an :class:`~advbound.errors.AdvboundError`, e.g.
     a row length below 1 at small T) still gives its points, with ``invalid`` set to the one-line
-    message; they are stored with status ``invalid`` and never computed.
+    message and, where the error names one, its fix; they are stored with status ``invalid`` and
+    never computed.
     """
     from advbound import __version__
+    from advbound.functions.grid import check_choices, chosen
     api = api or _instance_api()
     settings = solver_settings(study)
+    if choices:
+        check_choices(study.instance, choices)
     points = []
     for params in api.grid_points(study.instance):
         params = dict(params)
+        if not chosen(params, choices):
+            continue
         invalid = None
         try:
             key = api.spec_key(study.instance, params)
             spec = api.resolved(study.instance, params)
         except AdvboundError as err:
-            invalid = _one_line(err)
+            invalid = invalid_message(err)
             key, spec = _invalid_key(study, params), {"params": params}
         for bound in study.bounds:
             rk = run_key(KIND, key, bound, settings, __version__)
@@ -380,7 +391,18 @@ def plan(study: StudySpec, api=None) -> list[Point]:
         for req in exact_settings(study):
             rk = run_key(EXACT_KIND, key, None, req, __version__)
             points.append(Point(len(points), params, None, key, rk, spec, EXACT_KIND, req, invalid=invalid))
+    if choices and not points:
+        said = ", ".join(f"{k}={','.join(str(v) for v in vals)}" for k, vals in choices.items())
+        raise InvalidInstanceError(f"{study.path}: --set {said}: no grid point has these values together")
     return points
+
+
+def invalid_message(err: BaseException) -> str:
+    """The one-line message stored for a point with invalid input: the error, then its fix when it names
+    one (the ``fix`` attribute the instance functions set, e.g. ``raise T or lower rows``)."""
+    msg = _one_line(err)
+    fix = getattr(err, "fix", None)
+    return f"{msg}; fix: {fix}" if fix and fix not in msg else msg
 
 
 def _one_line(err: BaseException) -> str:

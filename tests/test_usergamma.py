@@ -295,3 +295,16 @@ def test_cli_sys_exit_callable_exit_2(tmp_path, capsys):
     assert main(["gamma", str(_table(tmp_path)), "--callable", spec]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and f"gamma callable {spec} called sys.exit(3) at pair ('000', '000')" in err
+
+
+def test_callable_constants_passed_as_keywords():
+    """Constants reach the callable as keyword arguments (also through **kwargs); a name it does not take is a
+    one-line error naming the parameter and the callable.  Star of OR_3 with weight w: the ratio is √3 for any
+    w > 0 (common knowledge; scaling Γ does not change the bound)."""
+    f = or_weight1(3)
+    rep = evaluate_gamma(f, gamma_from_callable(f, lambda x, y, w=1.0: w * star(x, y), params={"w": 2.5}))
+    assert abs(rep.norm - 2.5 * math.sqrt(3)) < 1e-12 and abs(rep.ratio - math.sqrt(3)) < 1e-12
+    g = gamma_from_callable(f, lambda x, y, **kw: kw["w"] * star(x, y), params={"w": 2.0})
+    assert g.max() == 2.0
+    with pytest.raises(GammaError, match=r"gamma callable m\.py:g does not accept a parameter 'v'"):
+        gamma_from_callable(f, lambda x, y, w=1.0: 0.0, name="m.py:g", params={"v": 1.0})

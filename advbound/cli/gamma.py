@@ -3,17 +3,29 @@
 Typical use::
 
     advbound gamma instances/or_search.toml --set T=7 --callable mygamma.py:gamma --improve
+    advbound gamma instances/or3_sum_T.toml --set T=6 --callable examples/gamma_star.py:gamma \
+        --param cross=0 --fit --save-params cross.json
+    advbound gamma instances/or3_sum_T.toml --set T=8 --callable examples/gamma_star.py:gamma \
+        --params-file cross.json
+
+Free constants: ``--param NAME=VALUE`` (repeatable) and ``--params-file`` pass keyword arguments
+to the callable, ``gamma(x, y, **params)``; ``--fit`` chooses them to maximise the certified
+bound (:mod:`advbound.programs.gammafit`), and the bound printed is then recomputed at the
+fitted values by the same evaluation as without ``--fit``.
 
 Exit codes: 0 ok, 2 bad input (unknown module or function, a spec naming a folder or a file
 that is not ``.py``, a callable that raises, calls ``sys.exit``, returns a non-number or
 entries so large that the norms overflow, an entries file naming inputs outside the domain,
-a ``--save-certificate`` path that cannot be written or already exists without ``--force``,
-a callable Γ too large for this machine's memory without ``--allow-large``).
+a ``--save-certificate`` or ``--save-params`` path that cannot be written or already exists
+without ``--force``, a callable Γ too large for this machine's memory without ``--allow-large``,
+a malformed ``--param`` or parameter file, a constant the callable does not accept).
 """
 
 from __future__ import annotations
 
 import json
+import keyword
+import math
 
 __all__ = ["register", "run"]
 
@@ -38,8 +50,33 @@ def register(subparsers) -> None:
     p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
     p.add_argument("--allow-large", action="store_true",
                    help="evaluate a callable even when the dense Γ exceeds the memory this machine has available")
+    _register_params(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
+
+
+def _register_params(p) -> None:
+    """The options for free constants of a callable Γ and for fitting them."""
+    g = p.add_argument_group("free constants of a callable Γ(x, y, **params)")
+    g.add_argument("--param", dest="gamma_params", action="append", default=[], metavar="NAME=VALUE",
+                   help="pass the keyword argument NAME=VALUE (a float) to the callable; with --fit, a start "
+                        "value (repeatable; overrides --params-file)")
+    g.add_argument("--params-file", metavar="PATH", default=None,
+                   help="read the constants from a JSON object {\"NAME\": number, ...} (as --save-params writes; "
+                        "default: none)")
+    g.add_argument("--fit", action="store_true",
+                   help="choose the constants maximising the certified bound, starting from the given values")
+    g.add_argument("--fit-method", choices=("nelder-mead", "powell"), default="nelder-mead",
+                   help="derivative-free scipy.optimize method (default nelder-mead: the bound is a maximum of "
+                        "norms, not smooth, and the simplex method only compares values)")
+    g.add_argument("--starts", type=int, default=4, metavar="K",
+                   help="starts: the given values and K-1 perturbations of them (default 4)")
+    g.add_argument("--seed", type=int, default=0, metavar="N",
+                   help="random generator seed of the perturbed starts (default 0)")
+    g.add_argument("--max-evals", type=int, default=300, metavar="N",
+                   help="evaluations of Γ in all, shared by the starts (default 300)")
+    g.add_argument("--save-params", metavar="PATH", default=None,
+                   help="write the (fitted) constants as JSON, for --params-file (default: none)")
 
 
 def _load_function(args):
@@ -48,25 +85,91 @@ def _load_function(args):
     return load_function(args.file, params=params)
 
 
-def run(args) -> int:
-    """Handler of ``advbound gamma``; returns the exit code."""
+def _parse_param_options(items) -> dict:
+    """``{name: float}`` from the ``--param NAME=VALUE`` strings, with one-line errors."""
+    from advbound.evidence.usergamma import GammaError
+
+    out = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        name = name.strip()
+        if not sep:
+            raise GammaError(f"--param {item!r}: expected NAME=VALUE")
+        if not name.isidentifier() or keyword.iskeyword(name):
+            raise GammaError(f"--param {item!r}: {name!r} is not a Python identifier")
+        try:
+            val = float(value)
+        except ValueError:
+            raise GammaError(f"--param {item!r}: {value.strip()!r} is not a number") from None
+        if not math.isfinite(val):
+            raise GammaError(f"--param {item!r}: {value.strip()!r} is not a finite number")
+        if name in out:
+            raise GammaError(f"--param {name} is given twice")
+        out[name] = val
+    return out
+
+
+def _check_options(args) -> None:
+    """Refuse inconsistent options before any work is done."""
     from advbound.cli.paths import check_output_path
     from advbound.errors import InvalidFunctionError
-    from advbound.evidence.usergamma import evaluate_gamma, gamma_from_callable, gamma_from_entries, improve_gamma, \
-        load_callable
 
     if args.iterations < 0:
         raise InvalidFunctionError(f"--iterations must be non-negative, got {args.iterations}")
+    for opt, val in (("--starts", args.starts), ("--max-evals", args.max_evals)):
+        if val < 1:
+            raise InvalidFunctionError(f"{opt} must be a positive integer, got {val}")
+    wants = [o for o, on in (("--param", args.gamma_params), ("--params-file", args.params_file),
+                             ("--fit", args.fit), ("--save-params", args.save_params)) if on]
+    if wants and not args.callable:
+        raise InvalidFunctionError(f"{wants[0]} needs --callable: an entries file has no free constants")
+    if (args.fit or args.save_params) and not (args.gamma_params or args.params_file):
+        raise InvalidFunctionError(f"{'--fit' if args.fit else '--save-params'} needs constants: give "
+                                   f"--param NAME=VALUE (the start values) or --params-file")
     if args.save_certificate:
         check_output_path(args.save_certificate, force=args.force)
+    if args.save_params:
+        check_output_path(args.save_params, force=args.force, option="--save-params")
+
+
+def _callable_params(args, func) -> dict:
+    """The constants for the callable: the parameter file's, overridden by ``--param``; checked."""
+    from advbound.evidence.usergamma import check_params
+    from advbound.programs.gammafit import read_params_file
+
+    params = read_params_file(args.params_file, func, name=args.callable) if args.params_file else {}
+    params.update(_parse_param_options(args.gamma_params))
+    return check_params(func, params, name=args.callable)
+
+
+def _gamma(args, f, func, params):
+    """Γ at ``params`` (fitted first with ``--fit``), its source label and the fit (or None)."""
+    from advbound.evidence.usergamma import gamma_from_callable, gamma_from_entries
+
+    if not args.callable:
+        return gamma_from_entries(f, args.entries), f"entries {args.entries}", None
+    fit = None
+    if args.fit:
+        from advbound.programs.gammafit import fit_gamma_params
+        fit = fit_gamma_params(f, func, params, method=args.fit_method, starts=args.starts,
+                               random_state=args.seed, max_evaluations=args.max_evals,
+                               name=args.callable, allow_large=args.allow_large)
+        params = fit.params
+    gamma = gamma_from_callable(f, func, name=args.callable, allow_large=args.allow_large, params=params)
+    return gamma, f"callable {args.callable}", fit
+
+
+def run(args) -> int:
+    """Handler of ``advbound gamma``; returns the exit code."""
+    from advbound.evidence.usergamma import evaluate_gamma, improve_gamma, load_callable
+
+    _check_options(args)
+    func = load_callable(args.callable) if args.callable else None
+    params = _callable_params(args, func) if args.callable else {}
     f = _load_function(args)
-    if args.callable:
-        func = load_callable(args.callable)
-        gamma = gamma_from_callable(f, func, name=args.callable, allow_large=args.allow_large)
-        source = f"callable {args.callable}"
-    else:
-        gamma = gamma_from_entries(f, args.entries)
-        source = f"entries {args.entries}"
+    gamma, source, fit = _gamma(args, f, func, params)
+    if fit is not None:
+        params = fit.params
     rep = evaluate_gamma(f, gamma)
     imp = improve_gamma(f, gamma, iterations=args.iterations) if args.improve else None
     if args.save_certificate:
@@ -74,17 +177,38 @@ def run(args) -> int:
         from advbound.evidence.certificate import Certificate, save_certificate
         from advbound.evidence.usergamma import _prepare
         g = imp.gamma if imp is not None else _prepare(f, gamma)[0]
+        meta = {"description": f.description, "bound": "general", "source": source}
+        if params:
+            meta["params"] = dict(params)
         save_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs, dtype=float), g,
-                                     metadata={"description": f.description, "bound": "general",
-                                               "source": source}), args.save_certificate)
+                                     metadata=meta), args.save_certificate)
+    if args.save_params:
+        from advbound.programs.gammafit import write_params_file
+        write_params_file(args.save_params, params)
     if args.json:
-        d = {"function": f.description, "source": source, **rep.to_dict()}
+        d = {"function": f.description, "source": source, **rep.to_dict(), "lower": rep.certified_ratio}
+        if args.callable:
+            d["params"] = dict(params)
+        if fit is not None:
+            d["fit"] = {k: v for k, v in fit.to_dict().items() if k != "params"}
         if imp is not None:
             d["improve"] = {"original_ratio": imp.original_ratio, "improved_ratio": imp.improved_ratio,
                             "iterations": imp.iterations, "accepted_steps": imp.accepted_steps,
                             "binding": [int(j) for j in imp.report.binding]}
         print(json.dumps(d, indent=1))
         return 0
+    _print_report(args, f, rep, source)
+    if params:
+        _print_params(args, rep, params, fit)
+    if imp is not None:
+        print(f"improve: original ratio {imp.original_ratio:.12g} -> improved {imp.improved_ratio:.12g} "
+              f"({imp.iterations} iterations, {imp.accepted_steps} accepted steps; binding now "
+              f"{', '.join(imp.report.binding_names) or 'none'})")
+    return 0
+
+
+def _print_report(args, f, rep, source) -> None:
+    """The text report of what Γ proves."""
     print(f"function: {f.description or args.file}; |D| = {rep.size}, {rep.n} positions; Γ from {source}")
     print(f"symmetric: {'yes' if rep.was_symmetric else f'no (max |Γ - Γᵀ| = {rep.asymmetry:.3g}; symmetrised)'}")
     print(f"equal-output entries zeroed: {rep.zeroed_entries} (max |Γ| {rep.zeroed_max:.3g}, "
@@ -100,8 +224,21 @@ def run(args) -> int:
         print(f"certified lower bound = {rep.certified_ratio:.12g} "
               f"({'; '.join(sorted(set(rep.bound_methods)))})")
     print(f"binding positions: {', '.join(rep.binding_names) or 'none'}")
-    if imp is not None:
-        print(f"improve: original ratio {imp.original_ratio:.12g} -> improved {imp.improved_ratio:.12g} "
-              f"({imp.iterations} iterations, {imp.accepted_steps} accepted steps; binding now "
-              f"{', '.join(imp.report.binding_names) or 'none'})")
-    return 0
+
+
+def _print_params(args, rep, params, fit) -> None:
+    """The constants used and, with ``--fit``, how they were found."""
+    shown = ", ".join(f"{k} = {v:.10g}" for k, v in params.items())
+    if fit is None:
+        print(f"constants: {shown}")
+        return
+    start = ", ".join(f"{k} = {v:.10g}" for k, v in fit.start.items())
+    print(f"fit: {fit.method} from {len(fit.starts)} starts (seed {fit.random_state}), "
+          f"{fit.evaluations} of at most {fit.max_evaluations} evaluations"
+          + (f" ({fit.failed_evaluations} failed)" if fit.failed_evaluations else ""))
+    print(f"start: {start} gives {fit.start_lower:.12g}")
+    print(f"fitted: {shown}")
+    print(f"lower bound at the fitted constants = {rep.certified_ratio:.12g} (recomputed above, not the "
+          f"optimiser's number)")
+    if args.save_params:
+        print(f"constants saved to {args.save_params} (reuse with --params-file)")

@@ -3,7 +3,8 @@
 This module owns turning a user-supplied Γ into a matrix over a function's canonical input
 order: importing ``"path/to/mod.py:func"`` or ``"package.module:func"``
 (:func:`load_callable`), calling it on every ordered pair of inputs
-(:func:`gamma_from_callable`), and reading ``.npz`` arrays or ``x y value`` text tables
+(:func:`gamma_from_callable`, optionally with free constants ``func(x, y, **params)`` checked by
+:func:`check_params`), and reading ``.npz`` arrays or ``x y value`` text tables
 (:func:`gamma_from_entries`), with one-line :class:`GammaError` messages for anything
 unusable.  What the matrix proves is :mod:`advbound.evidence.usergamma`'s job.
 
@@ -17,6 +18,8 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
+import inspect
+import keyword
 import math
 import numbers
 import os
@@ -27,7 +30,7 @@ import scipy.sparse as sp
 
 from advbound.errors import AdvboundError
 
-__all__ = ["GammaError", "load_callable", "gamma_from_callable", "gamma_from_entries", "DENSE_LIMIT"]
+__all__ = ["GammaError", "load_callable", "check_params", "gamma_from_callable", "gamma_from_entries", "DENSE_LIMIT"]
 
 #: Above this many inputs Γ is kept sparse and norms come from iterative solvers.
 DENSE_LIMIT = 2500
@@ -122,8 +125,64 @@ def _short(value, limit: int = 60) -> str:
     return r if len(r) <= limit else r[:limit - 3] + "..."
 
 
-def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool = False) -> np.ndarray:
-    """Dense ``Γ[x, y] = func(x, y)`` over all ordered pairs of inputs (``|D|²`` calls), unmodified.
+def _accepted_names(func):
+    """The keyword parameters ``func`` takes after ``x, y``: (names, takes ``**kwargs``), or None if unknown."""
+    try:
+        sig = inspect.signature(func)
+    except (TypeError, ValueError):  # builtins and some C callables have no signature
+        return None
+    names, var_kw, positional = [], False, 0
+    for prm in sig.parameters.values():
+        if prm.kind is prm.VAR_KEYWORD:
+            var_kw = True
+        elif prm.kind is prm.POSITIONAL_ONLY:
+            positional += 1
+        elif prm.kind is prm.POSITIONAL_OR_KEYWORD:
+            positional += 1
+            if positional > 2:
+                names.append(prm.name)
+        elif prm.kind is prm.KEYWORD_ONLY:
+            names.append(prm.name)
+    return names, var_kw
+
+
+def check_params(func, params, *, name: str | None = None) -> dict:
+    """Check the free constants ``params`` for ``func(x, y, **params)``; return them as ``{name: float}``.
+
+    Raises
+    ------
+    GammaError
+        One line for a name that is not a Python identifier, a value that is not a finite real
+        number, or a name ``func`` does not accept (naming the parameter and the callable).
+    """
+    label = name or getattr(func, "__qualname__", None) or _short(func)
+    out = {}
+    for key, val in dict(params or {}).items():
+        if not isinstance(key, str) or not key.isidentifier() or keyword.iskeyword(key):
+            raise GammaError(f"parameter name {_short(key)} is not a Python identifier")
+        if isinstance(val, bool) or not isinstance(val, numbers.Real):
+            raise GammaError(f"parameter {key} = {_short(val)} ({type(val).__name__}) is not a real number")
+        try:
+            val = float(val)
+        except (OverflowError, ValueError, TypeError, ArithmeticError):
+            raise GammaError(f"parameter {key} = {_short(val)} is not representable as a float") from None
+        if not math.isfinite(val):
+            raise GammaError(f"parameter {key} = {val!r} is not a finite number")
+        out[key] = val
+    accepted = _accepted_names(func) if out else None
+    if accepted is not None and not accepted[1]:
+        names = accepted[0]
+        for key in out:
+            if key not in names:
+                has = f"its parameters after x, y: {', '.join(names)}" if names else "it takes no parameters " \
+                                                                                      "after x, y"
+                raise GammaError(f"gamma callable {label} does not accept a parameter {key!r} ({has})")
+    return out
+
+
+def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool = False,
+                        params: dict | None = None) -> np.ndarray:
+    """Dense ``Γ[x, y] = func(x, y, **params)`` over all ordered pairs of inputs (``|D|²`` calls), unmodified.
 
     Parameters
     ----------
@@ -131,6 +190,8 @@ def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool =
     func : callable
     name : str, optional
         How messages name the callable (default its qualified name).
+    params : dict, optional
+        Free constants passed as keyword arguments (checked by :func:`check_params` first).
     allow_large : bool
         The dense matrix and the ``|D|²`` calls are sized first
         (:func:`advbound.functions.sizing.gamma_estimate`); more memory than this machine has
@@ -140,7 +201,8 @@ def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool =
     ------
     GammaError
         When ``func`` raises, calls ``sys.exit``, or returns something that is not a finite
-        real number (the message names the pair and the value).
+        real number (the message names the pair and the value).  Also for ``params`` that
+        :func:`check_params` refuses.
     advbound.functions.sizing.TooLargeError
         When the dense matrix would not fit in memory.
     """
@@ -150,11 +212,12 @@ def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool =
     size = len(inputs)
     check_memory(gamma_estimate(size, f.n), allow_large=allow_large)
     label = name or getattr(func, "__qualname__", None) or _short(func)
+    kw = check_params(func, params, name=name)
     g = np.empty((size, size))
     for i, x in enumerate(inputs):
         for k, y in enumerate(inputs):
             try:
-                val = func(x, y)
+                val = func(x, y, **kw)
             except SystemExit as err:
                 raise GammaError(f"gamma callable {label} called sys.exit({_short(err.code)}) at pair "
                                  f"({x!r}, {y!r})") from None

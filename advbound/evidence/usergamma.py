@@ -44,13 +44,15 @@ import numpy as np
 import scipy.sparse as sp
 
 from advbound import quantities as q
-from advbound.evidence.gammainput import DENSE_LIMIT, GammaError, gamma_from_callable, gamma_from_entries, load_callable
+from advbound.evidence.gammainput import (DENSE_LIMIT, GammaError, check_params, gamma_from_callable, gamma_from_entries,
+                                          load_callable)
 
 __all__ = [
     "GammaError",
     "GammaReport",
     "ImproveResult",
     "load_callable",
+    "check_params",
     "gamma_from_callable",
     "gamma_from_entries",
     "evaluate_gamma",

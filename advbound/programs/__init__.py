@@ -11,6 +11,7 @@
 :mod:`.factored`           a first-order solver for large two-output functions
 :mod:`.factored_lagrangian`  its augmented-Lagrangian optimiser
 :mod:`.largescale`         verified lower bounds from low-rank matrices, where no SDP fits
+:mod:`.gammafit`           free constants of a user-supplied Γ, fitted to the certified bound
 :mod:`.exact`              the exact t-query success probability: entry points and solve
 :mod:`.exact_program`      its formulation (the Barnum–Saks–Szegedy program)
 :mod:`.exact_symmetry`     its symmetry reduction

@@ -50,6 +50,14 @@ def register(subparsers) -> None:
     p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
     p.add_argument("--allow-large", action="store_true",
                    help="evaluate a callable even when the dense Γ exceeds the memory this machine has available")
+    p.add_argument("--orbits", action="store_true",
+                   help="for interchangeable rows: evaluate a row-invariant callable once per pair orbit, "
+                        "without listing the inputs (checked on random row permutations)")
+    p.add_argument("--blocks", action="store_true",
+                   help="with --orbits: norms from the representative set (exact for signed Γ; slower; "
+                        "needed for --save-certificate) instead of quotient matrices")
+    p.add_argument("--samples", type=int, default=200, metavar="N",
+                   help="with --orbits: random pairs of the row-invariance check (default 200)")
     _register_params(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
@@ -164,8 +172,14 @@ def run(args) -> int:
     from advbound.evidence.usergamma import evaluate_gamma, improve_gamma, load_callable
 
     _check_options(args)
+    if args.orbits:
+        from advbound.cli.gamma_orbits import check_orbit_options
+        check_orbit_options(args)
     func = load_callable(args.callable) if args.callable else None
     params = _callable_params(args, func) if args.callable else {}
+    if args.orbits:
+        from advbound.cli.gamma_orbits import run_orbits
+        return run_orbits(args, func, params)
     f = _load_function(args)
     gamma, source, fit = _gamma(args, f, func, params)
     if fit is not None:

@@ -11,6 +11,8 @@
 :mod:`.iterative`     matrix-free norm bounds for large adversary matrices
 :mod:`.gammainput`    reading a researcher's own Γ (callable or entries file)
 :mod:`.usergamma`     evaluating and improving it
+:mod:`.orbitgamma`    a row-invariant Γ by pair orbits, norms from the representative set
+:mod:`.orbitquotient` a row-invariant Γ by pair orbits, norms from quotient matrices
 :mod:`.export`        LaTeX evidence for a proof draft, from certificate files
 ====================  =========================================================
 

@@ -30,7 +30,8 @@ import scipy.sparse as sp
 
 from advbound.errors import AdvboundError
 
-__all__ = ["GammaError", "load_callable", "check_params", "gamma_from_callable", "gamma_from_entries", "DENSE_LIMIT"]
+__all__ = ["GammaError", "load_callable", "check_params", "call_gamma", "gamma_from_callable", "gamma_from_entries",
+           "DENSE_LIMIT"]
 
 #: Above this many inputs Γ is kept sparse and norms come from iterative solvers.
 DENSE_LIMIT = 2500
@@ -216,25 +217,30 @@ def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool =
     g = np.empty((size, size))
     for i, x in enumerate(inputs):
         for k, y in enumerate(inputs):
-            try:
-                val = func(x, y, **kw)
-            except SystemExit as err:
-                raise GammaError(f"gamma callable {label} called sys.exit({_short(err.code)}) at pair "
-                                 f"({x!r}, {y!r})") from None
-            except Exception as err:
-                raise GammaError(f"gamma({x!r}, {y!r}) raised {type(err).__name__}: {err}") from None
-            if isinstance(val, bool) or not isinstance(val, numbers.Real):
-                raise GammaError(f"gamma({x!r}, {y!r}) returned {_short(val)} ({type(val).__name__}), "
-                                 f"not a real number")
-            try:
-                val = float(val)
-            except (OverflowError, ValueError, TypeError, ArithmeticError) as err:
-                raise GammaError(f"gamma({x!r}, {y!r}) returned {_short(val)}, which is not representable as a "
-                                 f"float ({err})") from None
-            if not math.isfinite(val):
-                raise GammaError(f"gamma({x!r}, {y!r}) returned {val!r}, not a finite number")
-            g[i, k] = val
+            g[i, k] = call_gamma(func, x, y, kw, label)
     return g
+
+
+def call_gamma(func, x: str, y: str, kw: dict, label: str) -> float:
+    """``func(x, y, **kw)`` as a finite float, or a one-line :class:`GammaError` naming the pair."""
+    try:
+        val = func(x, y, **kw)
+    except SystemExit as err:
+        raise GammaError(f"gamma callable {label} called sys.exit({_short(err.code)}) at pair "
+                         f"({x!r}, {y!r})") from None
+    except Exception as err:
+        raise GammaError(f"gamma({x!r}, {y!r}) raised {type(err).__name__}: {err}") from None
+    if isinstance(val, bool) or not isinstance(val, numbers.Real):
+        raise GammaError(f"gamma({x!r}, {y!r}) returned {_short(val)} ({type(val).__name__}), "
+                         f"not a real number")
+    try:
+        val = float(val)
+    except (OverflowError, ValueError, TypeError, ArithmeticError) as err:
+        raise GammaError(f"gamma({x!r}, {y!r}) returned {_short(val)}, which is not representable as a "
+                         f"float ({err})") from None
+    if not math.isfinite(val):
+        raise GammaError(f"gamma({x!r}, {y!r}) returned {val!r}, not a finite number")
+    return val
 
 
 def gamma_from_entries(f, path):

@@ -39,7 +39,7 @@ from advbound.evidence.certificate import (FORMAT, _REQUIRED, _OPTIONAL, _check_
                                            _check_costs, _check_metadata, _decode, _read_archive, _show,
                                            check_acceptance)
 
-__all__ = ["ORBIT_FORMAT", "OrbitCertificate", "check_orbit_acceptance", "save_orbit_certificate",
+__all__ = ["ORBIT_FORMAT", "OrbitCertificate", "certificate_from_basis", "check_orbit_acceptance", "save_orbit_certificate",
            "load_orbit_certificate", "load_any_certificate", "save_any_certificate"]
 
 ORBIT_FORMAT = "advbound-orbit-certificate/1"
@@ -97,6 +97,21 @@ class OrbitCertificate:
 # ---------------------------------------------------------------------------------------------
 # The acceptance rule
 # ---------------------------------------------------------------------------------------------
+
+def certificate_from_basis(basis, gamma, rho, duals, metadata: dict) -> OrbitCertificate:
+    """The :class:`OrbitCertificate` of Γ per pair orbit of ``basis`` (a
+    :class:`~advbound.functions.rowbasis.RowBasis`), the test vector ``rho`` and the dual matrices
+    ``duals`` (``None`` for none)."""
+    fam = basis.family
+    alphabet = tuple(sorted(set("".join(fam.letters))))
+    keys = np.array(basis.pair_keys, dtype=np.int64).reshape(basis.n_weights, fam.n, 2)
+    return OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
+                            contents=np.array(fam.contents, dtype=np.int64), outputs=tuple(fam.outputs),
+                            costs=np.asarray(fam.costs, dtype=float), pair_keys=keys,
+                            gamma=np.asarray(gamma, dtype=float), rho=np.asarray(rho, dtype=float),
+                            duals=None if duals is None else tuple(np.asarray(z, dtype=float) for z in duals),
+                            metadata=dict(metadata))
+
 def check_orbit_acceptance(cert: OrbitCertificate, where: str = "orbit certificate") -> None:
     """Raise :class:`CertificateError` unless ``cert`` satisfies the rule in the module docstring.
 

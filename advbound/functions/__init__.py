@@ -16,6 +16,7 @@
 :mod:`.resolution`     an instance resolved at one grid point
 :mod:`.symmetry`       automorphism groups and orbits
 :mod:`.rowfamily`      functions of interchangeable rows, given by their input orbits
+:mod:`.specfamily`     the row family of an instance file, without listing its inputs
 :mod:`.tableaux`       partitions, Young tableaux and symmetrisers for row permutations
 :mod:`.rowbasis`       the representative set: exact blocks of S_{n−1}-invariant matrices
 :mod:`.sizing`         what a function will cost to solve, before doing it

@@ -309,16 +309,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
 
 def orbit_certificate(prog: RowProgram, gamma, rho, duals, metadata: dict):
     """The :class:`~advbound.evidence.orbitcert.OrbitCertificate` of a reduced solution."""
-    from advbound.evidence.orbitcert import OrbitCertificate
+    from advbound.evidence.orbitcert import certificate_from_basis
 
-    fam = prog.family
-    alphabet = tuple(sorted(set("".join(fam.letters))))
-    keys = np.array(prog.pair_keys, dtype=np.int64).reshape(prog.n_weights, fam.n, 2)
-    return OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
-                            contents=np.array(fam.contents, dtype=np.int64), outputs=tuple(fam.outputs),
-                            costs=np.asarray(fam.costs, dtype=float), pair_keys=keys,
-                            gamma=np.asarray(gamma, dtype=float), rho=np.asarray(rho, dtype=float),
-                            duals=tuple(np.asarray(z, dtype=float) for z in duals), metadata=dict(metadata))
+    return certificate_from_basis(prog.basis, gamma, rho, duals, metadata)
 
 
 def _rows_verdict(st: str, lower: float, dual: dict, tol: float) -> tuple[str, str, float | None]:

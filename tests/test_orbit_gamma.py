@@ -244,3 +244,40 @@ def test_cli_orbits_refuses_what_it_cannot_do(capsys, extra, match, tmp_path, mo
                          "--callable", STAR, "--param", "cross=0", *extra)
     assert code == 2 and match in err and "Traceback" not in err
     assert len(err.strip().splitlines()) == 1
+
+
+# -- lifting a solved Γ ----------------------------------------------------------------------------------------
+
+def shipped_certificate(name):
+    import glob
+    found = glob.glob(os.path.join(ROOT, "reports", "envelope", "certificates", f"{name}_general-*.npz"))
+    assert len(found) == 1
+    return found[0]
+
+
+def test_lift_same_reproduces_the_certificate_and_shift_stays_below_the_optimum():
+    """Outside values: the envelope store's verified bounds for 4 rows (T = 8: 3.3108876153, solved; T = 10:
+    upper bound 3.9400683835).  The same-size lift is the certificate's Γ; a lift to T = 10 proves a
+    positive bound, never above the optimum there."""
+    from advbound.evidence.lift import lifted_gamma
+    from advbound.evidence.orbitcert import load_any_certificate
+    cert = load_any_certificate(shipped_certificate("T=8_rows=4"))
+    same = orbit_gamma(position_search_family("or", 4, 8, max_ones=1), lifted_gamma(cert, "same"))
+    assert same.lower == pytest.approx(3.3108876153, rel=1e-8)
+    up = orbit_gamma(position_search_family("or", 4, 10, max_ones=1), lifted_gamma(cert, "shift"))
+    assert 0 < up.lower <= 3.9400683835
+
+
+def test_cli_lift(capsys):
+    cert = shipped_certificate("T=8_rows=4")
+    code, out, _ = run(capsys, "gamma", ENVELOPE, "--set", "T=10", "--set", "rows=4", "--orbits", "--blocks",
+                       "--lift", cert, "--json")
+    d = json.loads(out)
+    assert code == 0 and 0 < d["lower"] <= 3.9400683835 and d["source"].startswith("callable lift of")
+    code, _, err = run(capsys, "gamma", ENVELOPE, "--set", "T=10", "--set", "rows=5", "--orbits", "--lift", cert)
+    assert code == 2 and "the certificate has 4 rows but" in err
+    assert len(err.strip().splitlines()) == 1
+    code, out, err = run(capsys, "gamma", ENVELOPE, "--set", "T=10", "--set", "rows=4", "--lift", cert)
+    assert code == 0, err          # the dense path takes a lifted Γ too
+    dense = float(re.search(r"ratio = ([0-9.]+)", out).group(1))
+    assert dense == pytest.approx(d["lower"], rel=1e-8)

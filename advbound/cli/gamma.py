@@ -43,6 +43,11 @@ def register(subparsers) -> None:
                      help="Γ(x, y) -> float, from path/to/mod.py:func or package.module:func")
     src.add_argument("--entries", metavar="PATH", help=".npz (gamma, or gamma_row/gamma_col/gamma_val) or "
                                                        "text file with 'x y value' lines")
+    src.add_argument("--lift", metavar="CERT", help="Γ carried from the orbit certificate CERT of a smaller instance "
+                                                    "with as many position-search rows (see --rule)")
+    p.add_argument("--rule", choices=("same", "shift"), default="shift",
+                   help="with --lift: how a pair orbit of FILE finds its source orbit (default shift: lower the "
+                        "positions to the source's sum; same: only orbits the source has)")
     p.add_argument("--improve", action="store_true", help="local improvement by projected gradient ascent")
     p.add_argument("--iterations", type=int, default=100, metavar="N", help="improvement iterations (default 100)")
     p.add_argument("--save-certificate", metavar="PATH", default=None,
@@ -85,6 +90,19 @@ def _register_params(p) -> None:
                    help="evaluations of Γ in all, shared by the starts (default 300)")
     g.add_argument("--save-params", metavar="PATH", default=None,
                    help="write the (fitted) constants as JSON, for --params-file (default: none)")
+
+
+def _lifted(args):
+    """The lifted callable of ``--lift CERT`` (an orbit certificate)."""
+    from advbound.errors import InvalidFunctionError
+    from advbound.evidence.lift import lifted_gamma
+    from advbound.evidence.orbitcert import OrbitCertificate, load_any_certificate
+
+    cert = load_any_certificate(args.lift)
+    if not isinstance(cert, OrbitCertificate):
+        raise InvalidFunctionError(f"{args.lift}: --lift needs an orbit certificate (of interchangeable rows), "
+                                   "not a dense one")
+    return lifted_gamma(cert, args.rule)
 
 
 def _load_function(args):
@@ -171,16 +189,24 @@ def run(args) -> int:
     """Handler of ``advbound gamma``; returns the exit code."""
     from advbound.evidence.usergamma import evaluate_gamma, improve_gamma, load_callable
 
+    lifted = None
+    if args.lift:
+        lifted = _lifted(args)
+        args.callable = f"lift of {args.lift} (rule {args.rule})"
     _check_options(args)
     if args.orbits:
         from advbound.cli.gamma_orbits import check_orbit_options
         check_orbit_options(args)
-    func = load_callable(args.callable) if args.callable else None
+    func = lifted or (load_callable(args.callable) if args.callable else None)
     params = _callable_params(args, func) if args.callable else {}
     if args.orbits:
         from advbound.cli.gamma_orbits import run_orbits
         return run_orbits(args, func, params)
     f = _load_function(args)
+    if lifted is not None and len(f.groups or ()) != lifted.rows:
+        from advbound.errors import InvalidFunctionError
+        raise InvalidFunctionError(f"--lift: the certificate has {lifted.rows} rows but {args.file} has "
+                                   f"{len(f.groups or ())} row(s); lift to an instance with as many rows")
     gamma, source, fit = _gamma(args, f, func, params)
     if fit is not None:
         params = fit.params

@@ -49,6 +49,11 @@ def _family(args):
 def run_orbits(args, func, params) -> int:
     """Evaluate by orbits and print (text or JSON); return the exit code."""
     fam = _family(args)
+    rows = getattr(func, "rows", None)
+    if rows is not None and rows != fam.n:
+        from advbound.errors import InvalidFunctionError
+        raise InvalidFunctionError(f"--lift: the certificate has {rows} rows but {args.file} has {fam.n} at this "
+                                   f"grid point; lift to an instance with as many rows")
     if not args.blocks:
         return _run_quotient(args, fam, func, params)
     return _run_blocks(args, fam, func, params)

@@ -13,6 +13,7 @@
 :mod:`.usergamma`     evaluating and improving it
 :mod:`.orbitgamma`    a row-invariant Γ by pair orbits, norms from the representative set
 :mod:`.orbitquotient` a row-invariant Γ by pair orbits, norms from quotient matrices
+:mod:`.lift`          a solved Γ carried to a larger instance, orbit by orbit
 :mod:`.export`        LaTeX evidence for a proof draft, from certificate files
 ====================  =========================================================
 

@@ -140,6 +140,8 @@ def _request(req: dict) -> str:
 
 
 def _what(row_or_point) -> str:
+    if row_or_point.kind == "conjecture":
+        return "conjecture"
     if row_or_point.kind != "exact":
         return str(row_or_point.bound)
     req = getattr(row_or_point, "request", None) or getattr(row_or_point, "solver", None) or {}
@@ -189,7 +191,9 @@ def run(args) -> int:
               if choices else "")
     print(f"study {study.name}: {summary.planned} point(s){subset}; {summary.skipped} already stored, "
           f"{summary.solved} solved now, {summary.failed} failed now"
-          + (f", {len(invalid_rows)} with invalid input" if invalid_rows else "") + f"; store {study.store}")
+          + (f", {len(invalid_rows)} with invalid input" if invalid_rows else "")
+          + (f", {summary.too_large} conjecture(s) skipped as too large" if getattr(summary, "too_large", 0) else "")
+          + f"; store {study.store}")
     for row in summary.rows:
         if row.failed and not row.invalid:
             print(f"  failed: {row.params} {_what(row)}: {row.status}: {row.error or row.message}")

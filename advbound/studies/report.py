@@ -8,7 +8,10 @@ band, the ratios ``L/√T`` and ``L/√(T log T)``, fit residuals); LaTeX tables
 (booktabs); the data as CSV and JSON; and provenance.  When the store holds exact
 t-query rows (kind ``"exact"``), it adds a table of them next to ADV± with the check
 ``t ≥ ((1 − 2√(ε(1−ε)))/2)·ADV±`` (:func:`collect_exact`, :func:`adversary_check`) and the
-figure ``exact_vs_T``.  matplotlib is imported
+figure ``exact_vs_T``.  When it holds conjecture rows (kind ``"conjecture"``, a researcher's Γ
+evaluated at each grid point), the conjecture is drawn as its own series in ``bound_vs_T``, fitted like
+the others, listed in the tables and data files, compared with the optimum in the figure
+``conjecture_ratio`` and described in a section of ``summary.md``.  matplotlib is imported
 inside the drawing functions (Agg canvas, no pyplot state).
 
 The work is shared with sibling modules, whose names this module re-exports:
@@ -38,9 +41,11 @@ from pathlib import Path
 from advbound.errors import AdvboundError
 from advbound.studies.report_exact import (CHECK_SLACK, ExactEntry, ExactPoint, _has_exact, adversary_check,
                                            adversary_factor, collect_exact)
-from advbound.studies.report_figures import _plot_bounds, _plot_exact, _plot_ratios, _plot_residuals
-from advbound.studies.report_series import (_EXACT_KIND, _KIND, FIT_MAX_GAP, Series, _report_certificate,
-                                            certificate_problems, collect_series, fit_series, invalid_points,
+from advbound.studies.report_figures import (_plot_bounds, _plot_conjecture_ratio, _plot_exact, _plot_ratios,
+                                             _plot_residuals)
+from advbound.studies.report_series import (_CONJ_KIND, _EXACT_KIND, _KIND, FIT_MAX_GAP, Series, _latest,
+                                            _report_certificate, certificate_problems, collect_conjecture,
+                                            collect_series, conjecture_ratios, fit_series, invalid_points,
                                             open_store, study_settings)
 from advbound.studies.report_summary import SUMMARY_LIST_LIMIT, _summary  # noqa: F401 (re-exported)
 from advbound.studies.report_tables import (_write_data, _write_exact_files, _write_fit_tables, _write_provenance,
@@ -75,7 +80,8 @@ class _StoreContents:
     """What a report reads from its store, in one read-only open (see :func:`_read_store`).
 
     ``rows`` are the adversary rows, ``exact`` is ``(columns, points)`` of :func:`collect_exact`
-    (``None`` without exact points), ``left_out`` the store's warnings and ``certificate`` maps each
+    (``None`` without exact points), ``conj`` the conjecture series and ``conj_rows`` the latest
+    conjecture row of each instance (any status), ``left_out`` the store's warnings and ``certificate`` maps each
     adversary row's run key to its certificate path as the report shows it.
     """
 
@@ -89,6 +95,8 @@ class _StoreContents:
     left_out: list
     store_path: str
     certificate: dict
+    conj: list = dataclasses.field(default_factory=list)
+    conj_rows: list = dataclasses.field(default_factory=list)
 
 
 def _read_store(st: Store) -> _StoreContents:
@@ -98,12 +106,15 @@ def _read_store(st: Store) -> _StoreContents:
     series = collect_series(st, meta)
     exact_rows = st.rows(kind=_EXACT_KIND)
     exact = collect_exact(st, meta) if _has_exact(meta, exact_rows) else None
+    conj = collect_conjecture(st, meta)
+    conj_rows = _latest(st.rows(kind=_CONJ_KIND))
     st.check_rows()
     invalid = invalid_points(st.rows(), meta.get("grid"))
     certs = certificate_problems(st, rows)
     left_out = list(st.warnings)
     certificate = {r.run_key: _report_certificate(st, r) for r in rows}
-    return _StoreContents(meta, rows, series, exact_rows, exact, invalid, certs, left_out, st.path, certificate)
+    return _StoreContents(meta, rows, series, exact_rows, exact, invalid, certs, left_out, st.path, certificate,
+                          conj, conj_rows)
 
 
 def _report_folder(out) -> Path:
@@ -149,26 +160,30 @@ def write_report(source, out: str | os.PathLike | None = None, *, store: str | N
     name = meta.get("name") or Path(got.store_path).stem
     out = _report_folder(out if out is not None else (meta.get("report") or f"reports/{name}"))
     growth = meta.get("growth") or "T"
-    fits = fit_series(series, meta, bootstrap=bootstrap, seed=seed)
+    conj = got.conj
+    ratios = conjecture_ratios(conj, series)
+    fits = fit_series(series + conj, meta, bootstrap=bootstrap, seed=seed)
 
-    figures = (_plot_bounds(series, fits, growth, out) + _plot_ratios(series, growth, out)
+    figures = (_plot_bounds(series, fits, growth, out, conj) + _plot_ratios(series, growth, out)
                + _plot_residuals(fits, growth, out))
-    tables = _write_fit_tables(series, fits, growth, out)
+    if ratios:
+        figures += _plot_conjecture_ratio(ratios, series, growth, out)
+    tables = _write_fit_tables(series, fits, growth, out, conj, ratios)
     exact_json = None
     if exact is not None:
         figures += _plot_exact(exact[0], exact[1], growth, meta.get("series"), out)
         t3, exact_json = _write_exact_files(exact, got.exact_rows, meta, out)
         tables.append(t3)
 
-    csv_path, json_path, fits_path = _write_data(rows, got.certificate, meta, fits, out)
+    csv_path, json_path, fits_path = _write_data(rows + got.conj_rows, got.certificate, meta, fits, out)
     generated = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
     prov_path = _write_provenance(rows, got.certificate, None if exact is None else got.exact_rows, meta,
-                                  got.store_path, out, generated)
+                                  got.store_path, out, generated, got.conj_rows)
 
     summary = out / "summary.md"
     data = [csv_path, json_path, *([exact_json] if exact_json else []), fits_path]
     summary.write_text(_summary(meta, name, rows, series, fits, growth, generated, got.store_path, figures,
                                 tables, data, prov_path, out, exact, invalid=got.invalid, left_out=got.left_out,
-                                certs=got.certs))
+                                certs=got.certs, conj=conj, ratios=ratios, conj_rows=got.conj_rows))
     return ReportFiles(str(out), str(summary), tuple(figures), tuple(str(t) for t in tables),
                        tuple(str(d) for d in data), str(prov_path))

@@ -1,8 +1,9 @@
 """The figures of a report, drawn with matplotlib (Agg canvas, no pyplot state) as PNG and PDF.
 
 This module owns ``bound_vs_T`` (bound vs growth variable with fitted curves and the
-upper-bound band), ``ratios`` (``L/√T`` and ``L/√(T log T)``), ``residuals`` (relative fit
-residuals) and ``exact_vs_T`` (exact t-query points next to ADV±).  matplotlib is imported
+upper-bound band, and the conjecture series when the study has one), ``ratios`` (``L/√T`` and
+``L/√(T log T)``), ``residuals`` (relative fit residuals), ``exact_vs_T`` (exact t-query points next
+to ADV±) and ``conjecture_ratio`` (conjecture ÷ verified ADV± lower bound).  matplotlib is imported
 inside the drawing functions.
 """
 
@@ -76,7 +77,22 @@ def _legend_outside(ax) -> None:
         ax.legend(fontsize="x-small", loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
 
 
-def _plot_bounds(series, fits, growth, out) -> list[str]:
+#: Marker of the conjecture series (distinct from every marker of :data:`_MARKERS`).
+_CONJ_MARKER = "x"
+
+
+def _plot_conjecture(ax, conj, series, bound) -> None:
+    """The conjecture series in the panel of ``bound``: crosses joined by dotted lines, each in the colour
+    of the optimum's series with the same series value."""
+    import numpy as np
+    keys = [x.key for x in series if x.bound == bound and not x.envelope]
+    for j, c in enumerate(conj):
+        i = keys.index(c.key) if c.key in keys else len(keys) + j
+        ax.plot(np.array(c.T), np.array(c.lower), _CONJ_MARKER + ":", color=f"C{i % 10}", markersize=8,
+                linewidth=1, label=c.label)
+
+
+def _plot_bounds(series, fits, growth, out, conj=()) -> list[str]:
     import numpy as np
 
     from advbound.studies.fit import evaluate
@@ -108,9 +124,12 @@ def _plot_bounds(series, fits, growth, out) -> list[str]:
                         best = " (best)" if model == top else ""
                         ax.plot(grid, evaluate(model, fr.params, grid), ls, color=color, linewidth=1,
                                 label=f"{law_label(model, growth)} fit{best}")
+        if bound == "general" and conj:
+            _plot_conjecture(ax, conj, series, bound)
         ax.set_xscale("log")
         ax.set_yscale("log")
-        _plain_log_ticks(ax, sorted({v for x in series if x.bound == bound for v in x.T}))
+        _plain_log_ticks(ax, sorted({v for x in [*series, *(conj if bound == "general" else ())]
+                                     if x.bound == bound for v in x.T}))
         ax.set_xlabel(f"{growth} (log scale)")
         ax.set_ylabel(f"verified bound on {_BOUND_TITLE.get(bound, bound)} (log scale)")
         gap = f" (widest {max(gaps):.1g})" if gaps else " (no upper bounds)"
@@ -223,3 +242,27 @@ def _plot_exact(columns, points, growth, series_key, out) -> list[str]:
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         _legend_outside(ax)
     return _save(fig, out, "exact_vs_T")
+
+
+def _plot_conjecture_ratio(ratios, series, growth, out) -> list[str]:
+    """``conjecture_ratio``: the conjecture's certified bound ÷ the verified ADV± lower bound, per series."""
+    import numpy as np
+    from matplotlib.ticker import MaxNLocator
+    fig = _figure(1)
+    ax = fig.subplots()
+    keys = [x.key for x in series if x.bound == "general" and not x.envelope]
+    for j, r in enumerate(ratios):
+        i = keys.index(r.conjecture.key) if r.conjecture.key in keys else len(keys) + j
+        ax.plot(np.array(r.T), np.array(r.value), _MARKERS[i % len(_MARKERS)] + "-", color=f"C{i % 10}",
+                fillstyle="none", label=r.label)
+    ax.axhline(1.0, color="0.4", linewidth=0.8, linestyle="--", label="ratio 1 (conjecture = optimum)")
+    lo = min([min(r.value) for r in ratios] + [1.0])
+    hi = max([max(r.value) for r in ratios] + [1.0])
+    ax.set_ylim(max(0.0, lo - 0.1 * (hi - lo) - 0.02), hi + 0.05)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.set_xlabel(growth)
+    ax.set_ylabel("conjecture ÷ verified ADV± lower bound")
+    ax.set_title("conjectured Γ ÷ optimum (the optimum's verified lower bound)", fontsize="medium")
+    ax.grid(True, axis="y", linewidth=0.4, alpha=0.5)
+    ax.legend(fontsize="x-small", loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=2, frameon=False)
+    return _save(fig, out, "conjecture_ratio")

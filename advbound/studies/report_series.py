@@ -6,8 +6,9 @@ series value) and :func:`collect_series`, :func:`open_store` (read-only), the ch
 store's study settings (:func:`study_settings`), the fits of the series (:func:`fit_series`,
 through :func:`advbound.studies.fit.compare_models`, leaving out loose points beyond
 :data:`FIT_MAX_GAP`), the invalid points no later row replaced (:func:`invalid_points`) and the
-rows whose certificate cannot be found from the store's folder (:func:`certificate_problems`).
-The report itself is :func:`advbound.studies.report.write_report`.
+rows whose certificate cannot be found from the store's folder (:func:`certificate_problems`), and
+the conjecture series (rows of kind ``"conjecture"``: :func:`collect_conjecture`, compared with the
+optimum by :func:`conjecture_ratios`).  The report itself is :func:`advbound.studies.report.write_report`.
 
 >>> s = Series("general", None, (4.0, 8.0), (2.0, 2.9), (2.0, 3.5), (24, 48), ("a", "b"))
 >>> s.label, _fit_points(s, FIT_MAX_GAP).T
@@ -25,17 +26,21 @@ from typing import Any
 from advbound.studies.store import Store, StoredRow
 
 __all__ = ["Series", "open_store", "collect_series", "study_settings", "fit_series", "FIT_MAX_GAP",
-           "invalid_points", "certificate_problems"]
+           "invalid_points", "certificate_problems", "collect_conjecture", "conjecture_title", "conjecture_ratios",
+           "Ratio"]
 
 _KIND = "adversary"
 _EXACT_KIND = "exact"
+_CONJ_KIND = "conjecture"
 
 
 @dataclasses.dataclass(frozen=True)
 class Series:
     """The successful points of one bound kind and one series value, sorted by the growth variable.
 
-    ``upper`` entries are ``None`` where no upper bound verified.
+    ``upper`` entries are ``None`` where no upper bound verified.  A conjecture series (the certified
+    bounds of a researcher's Γ, :func:`collect_conjecture`) has ``conjecture`` set to its description,
+    e.g. ``"gamma_star, fitted each"``, and no upper bounds.
     """
 
     bound: str
@@ -49,11 +54,18 @@ class Series:
     envelope: str | None = None
     argmax: tuple = ()
     at_edge: tuple = ()
+    conjecture: str | None = None
 
     @property
     def label(self) -> str:
-        """E.g. ``"general, rows=3"`` (``"series 3"`` without a name), ``"general"`` without a key, or
-        ``"general, envelope over rows"`` for an envelope series."""
+        """E.g. ``"general, rows=3"`` (``"series 3"`` without a name), ``"general"`` without a key,
+        ``"general, envelope over rows"`` for an envelope series, or ``"conjecture (gamma_star, fitted
+        each), rows=3"``."""
+        if self.conjecture:
+            head = f"conjecture ({self.conjecture})"
+            if self.key is None:
+                return head
+            return f"{head}, {self.name}={self.key}" if self.name else f"{head}, series {self.key}"
         if self.envelope:
             return f"{self.bound}, envelope over {self.envelope}"
         if self.key is None:
@@ -174,6 +186,7 @@ _SETTING_CHECKS = {
     "instance": (lambda v: isinstance(v, dict), "must be a table"),
     "grid": (lambda v: isinstance(v, dict), "must be a table"),
     "exact": (lambda v: isinstance(v, dict), "must be a table"),
+    "conjecture": (lambda v: isinstance(v, dict), "must be a table"),
 }
 
 
@@ -268,7 +281,7 @@ def certificate_problems(st: Store, rows: list[StoredRow]) -> list[str]:
 
 
 def _point_key(r: StoredRow) -> tuple:
-    what = r.bound if r.kind != _EXACT_KIND else json.dumps(r.solver, sort_keys=True, default=str)
+    what = r.bound if r.kind not in (_EXACT_KIND, _CONJ_KIND) else json.dumps(r.solver, sort_keys=True, default=str)
     return r.kind, json.dumps(r.params, sort_keys=True, default=str), what
 
 
@@ -286,7 +299,8 @@ def invalid_points(rows: list[StoredRow], grid: dict | None = None) -> list[tupl
     groups: dict = {}
     for r in rows:
         if r.invalid and last[_point_key(r)] is r and _in_grid(r.params, grid):
-            what = r.bound if r.kind != _EXACT_KIND else "exact " + _exact_label(r.solver)
+            what = ("conjecture" if r.kind == _CONJ_KIND else r.bound if r.kind != _EXACT_KIND
+                    else "exact " + _exact_label(r.solver))
             g = groups.setdefault((json.dumps(r.params, sort_keys=True, default=str), r.message),
                                   (r.params, r.message or "", []))
             g[2].append(str(what))
@@ -301,3 +315,73 @@ def _in_grid(params: dict, grid: dict | None) -> bool:
 
 def _exact_label(req: dict) -> str:
     return f"t={req.get('queries')}" if req.get("queries") is not None else f"eps={req.get('error')}"
+
+
+# -- the conjecture -------------------------------------------------------------------------
+def conjecture_title(meta: dict) -> str:
+    """How the report names the conjecture: ``"gamma_star, fitted each"``, ``"gamma_star, fitted once"``,
+    ``"gamma_star, cross = 0.05"`` (constants as given) or just the label without constants.
+
+    >>> conjecture_title({"conjecture": {"label": "g", "fit": "none", "params": {"c": 0.5}}})
+    'g, c = 0.5'
+    """
+    cj = meta.get("conjecture") or {}
+    label = str(cj.get("label") or cj.get("callable") or "Γ")
+    fit = cj.get("fit", "none")
+    if fit in ("each", "once"):
+        return f"{label}, fitted {fit}"
+    params = cj.get("params") or {}
+    return ", ".join([label, *(f"{k} = {v:g}" for k, v in params.items() if _real(v))])
+
+
+def collect_conjecture(store: Store, meta: dict | None = None) -> list[Series]:
+    """The successful conjecture rows as :class:`Series`, one per series value (latest row per instance)."""
+    meta = study_settings(meta if meta is not None else store.study_meta(), store.path)
+    growth = meta.get("growth") or "T"
+    skey = meta.get("series")
+    title = conjecture_title(meta)
+    groups: dict = {}
+    for r in _latest(store.rows(kind=_CONJ_KIND, successful_only=True)):
+        if r.lower is None or growth not in r.params or not _real(r.params[growth]):
+            continue
+        groups.setdefault(r.params.get(skey) if skey else None, []).append(r)
+    out = []
+    for key in sorted(groups, key=_sortable):
+        rows = sorted(groups[key], key=lambda r: float(r.params[growth]))
+        out.append(Series("general", key, tuple(float(r.params[growth]) for r in rows), tuple(r.lower for r in rows),
+                          (None,) * len(rows), tuple(r.domain_size for r in rows), tuple(rows), skey,
+                          conjecture=title))
+    return out
+
+
+@dataclasses.dataclass(frozen=True)
+class Ratio:
+    """Conjecture ÷ optimum along one series: at each growth value both have, the conjecture's certified
+    bound over the verified ADV± lower bound of the same instance (``optimum``, with its ``upper``)."""
+
+    conjecture: Series
+    T: tuple
+    value: tuple
+    optimum: tuple
+    upper: tuple
+
+    @property
+    def label(self) -> str:
+        """The conjecture series' label."""
+        return self.conjecture.label
+
+
+def conjecture_ratios(conj: list[Series], series: list[Series]) -> list[Ratio]:
+    """One :class:`Ratio` per conjecture series that shares growth values with the ADV± (``general``)
+    series of the same series value; envelope series are not used."""
+    opt = {s.key: s for s in series if s.bound == "general" and not s.envelope and not s.conjecture}
+    out = []
+    for c in conj:
+        o = opt.get(c.key)
+        if o is None:
+            continue
+        at = {t: (lo, up) for t, lo, up in zip(o.T, o.lower, o.upper)}
+        keep = [(t, v / at[t][0], at[t][0], at[t][1]) for t, v in zip(c.T, c.lower) if t in at and at[t][0] > 0]
+        if keep:
+            out.append(Ratio(c, *(tuple(x) for x in zip(*keep))))
+    return out

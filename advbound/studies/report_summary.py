@@ -2,7 +2,11 @@
 
 This module owns :func:`_summary`, which writes the Markdown of ``summary.md`` from what
 :func:`advbound.studies.report.write_report` read and wrote, and the fixed paragraphs on what
-the lower and upper bounds and the exact points prove.
+the lower and upper bounds and the exact points prove, and the section on a conjectured Γ
+(:func:`_conjecture_section`: its bounds, the ratio to the optimum and how that ratio moves).
+
+>>> _trend((4.0, 5.0, 6.0), (0.94, 0.91, 0.88), "T")
+'over T = 4..6 the ratio falls from 0.9400 to 0.8800'
 """
 
 from __future__ import annotations
@@ -87,8 +91,84 @@ def _envelope_section(w, s, growth) -> None:
     w("\n")
 
 
+#: First and last ratio closer than this are reported as "stays at".
+TREND_TOL = 5e-4
+
+
+def _span(T) -> str:
+    """``4..7`` for consecutive integers, else the values listed."""
+    ints = all(float(t).is_integer() for t in T)
+    if ints and len(T) > 2 and list(T) == [T[0] + k for k in range(len(T))]:
+        return f"{T[0]:g}..{T[-1]:g}"
+    return ", ".join(f"{t:g}" for t in T)
+
+
+def _trend(T, r, growth) -> str:
+    """One plain sentence on how the ratio moves from the first to the last growth value."""
+    if len(T) == 1:
+        return f"at {growth} = {T[0]:g} (one point) the ratio is {r[0]:.4f}"
+    first, last = r[0], r[-1]
+    head = f"over {growth} = {_span(T)} the ratio"
+    if abs(last - first) < TREND_TOL:
+        text = f"{head} stays at {first:.4f} (first and last differ by less than {TREND_TOL:g})"
+    else:
+        text = f"{head} {'falls' if last < first else 'rises'} from {first:.4f} to {last:.4f}"
+    steps = [b - a for a, b in zip(r, r[1:])]
+    if any(x > TREND_TOL for x in steps) and any(x < -TREND_TOL for x in steps):
+        text += f", not monotonically (range {min(r):.4f} to {max(r):.4f})"
+    return text
+
+
+def _conjecture_section(w, meta, growth, conj, ratios, conj_rows) -> None:
+    """``## Conjectured Γ``: what was evaluated, one table per series, the ratio and its trend."""
+    from advbound.studies.report_series import conjecture_title
+    cj = meta.get("conjecture") or {}
+    w(f"## Conjectured Γ: {conjecture_title(meta)}\n\n")
+    fit = cj.get("fit", "none")
+    consts = ", ".join(f"{k} = {v:g}" for k, v in (cj.get("params") or {}).items()) or "none"
+    how = {"none": f"evaluated at the given constants ({consts})",
+           "each": f"its constants fitted at every grid point (start {consts}; {cj.get('fit_method')}, "
+                   f"{cj.get('starts')} starts, at most {cj.get('max_evals')} evaluations, "
+                   f"seed {cj.get('seed')})",
+           "once": f"its constants fitted once per series, at the smallest {growth} (start {consts}; "
+                   f"{cj.get('fit_method')}, {cj.get('starts')} starts, at most {cj.get('max_evals')} evaluations, "
+                   f"seed {cj.get('seed')}), and reused at the larger {growth}"}.get(fit, fit)
+    digest = (cj.get("sha256") or "")[:12]
+    w(f"The callable `{cj.get('callable')}`" + (f" (file sha256 {digest}…)" if digest else "")
+      + f" gives Γ(x, y, **constants), {how}. At each grid point the value is the certified ratio "
+      "‖Γ‖ / max_j ‖Γ∘Δ_j‖/c_j after symmetrising Γ and zeroing it on equal-output pairs, from dense "
+      "eigensolvers (floating point; functions above the dense limit of `advbound gamma` are skipped). "
+      "Like the optimum's lower value it is a lower bound on ADV± of that function; fitted constants "
+      "are re-evaluated, not the optimiser's number.\n\n")
+    for c in conj:
+        w(f"### {c.label}\n\n| {growth} | domain size | conjecture | constants | fitted at |\n"
+          "|---:|---:|---:|---|---|\n")
+        for t, lo, d, r in zip(c.T, c.lower, c.domain_size, c.rows):
+            ps = ", ".join(f"{k} = {v:.6g}" for k, v in (r.values.get("params") or {}).items()) or "--"
+            at = r.values.get("fitted_at")
+            at = " ".join(f"{k}={v}" for k, v in at.items()) if isinstance(at, dict) else "--"
+            w(f"| {t:g} | {d} | {_f(lo)} | {ps} | {at} |\n")
+        w("\n")
+    w("### Ratio to the optimum\n\n")
+    if ratios:
+        w("Conjecture ÷ optimum, the optimum being the **verified lower bound** on ADV± of the same instance "
+          "(the `lower` column above); since that is at most ADV±, the ratio shown is at least "
+          "conjecture ÷ ADV±, and equal to it up to the optimum's relative gap. Figure `conjecture_ratio.png`.\n\n")
+        for r in ratios:
+            where = r.conjecture.label.split("), ", 1)[1] if "), " in r.conjecture.label else "all points"
+            w(f"* {where}: {_trend(r.T, r.value, growth)}; range {min(r.value):.4f} to {max(r.value):.4f}.\n")
+        w(f"\nThese describe the computed range of {growth} only.\n\n")
+    else:
+        w("No ratio: no grid point has both a conjecture value and a verified ADV± (`general`) lower bound.\n\n")
+    others = [r for r in conj_rows if not r.success and not r.invalid]
+    if others:
+        w("Conjecture points without a value:\n\n")
+        _listing(w, [f"`{json.dumps(r.params, sort_keys=True)}`: {r.status} — {r.error or r.message}"
+                     for r in others])
+
+
 def _summary(meta, name, rows, series, fits, growth, generated, store_path, figures, tables, data, prov,
-             out, exact=None, invalid=(), left_out=(), certs=()) -> str:
+             out, exact=None, invalid=(), left_out=(), certs=(), conj=(), ratios=(), conj_rows=()) -> str:
     b = io.StringIO()
     w = b.write
     w(f"# Study `{name}`\n\n")
@@ -148,6 +228,8 @@ def _summary(meta, name, rows, series, fits, growth, generated, store_path, figu
         checks = [e.check for p in exact[1] for e in p.entries if e is not None]
         w(f"Checks: {checks.count('pass')} pass, {checks.count('fail')} fail, {checks.count('n/a')} n/a.\n\n")
         w(_EXACT_PROVES + "\n")
+    if meta.get("conjecture") or conj_rows:
+        _conjecture_section(w, meta, growth, conj, ratios, conj_rows)
     w("## Growth-law fits (verified lower bounds)\n\n")
     w("Least squares with relative weights; parameters ± standard errors from the Jacobian; "
       "bracketed intervals are seeded residual-bootstrap 95% intervals. Ranked by the information "

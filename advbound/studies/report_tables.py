@@ -52,11 +52,18 @@ def _g(v, digits=3) -> str:
     return f"{v:.{digits}g}"
 
 
-def latex_results_table(series: list[Series], growth: str = "T") -> str:
-    """A booktabs ``tabular`` of bound, series, growth value, domain size, lower, upper and gap."""
-    sname = next((x.name for x in series if x.name), None) or "series"
-    lines = [r"\begin{tabular}{llrrrrr}", r"\toprule",
-             rf"bound & {_tex(sname)} & ${_tex(growth)}$ & $|D|$ & lower & upper & rel.\ gap \\", r"\midrule"]
+def latex_results_table(series: list[Series], growth: str = "T", conj=(), ratios=()) -> str:
+    """A booktabs ``tabular`` of bound, series, growth value, domain size, lower, upper and gap.
+
+    With conjecture series (``conj``, :func:`advbound.studies.report_series.collect_conjecture`) their rows
+    follow, with bound ``conjecture`` and no upper bound, and a last column gives the ratio of each to the
+    verified ADV± lower bound of the same instance (``ratios``, :func:`conjecture_ratios`).
+    """
+    sname = next((x.name for x in [*series, *conj] if x.name), None) or "series"
+    extra = bool(conj)
+    lines = [r"\begin{tabular}{llrrrrr" + ("r}" if extra else "}"), r"\toprule",
+             rf"bound & {_tex(sname)} & ${_tex(growth)}$ & $|D|$ & lower & upper & rel.\ gap"
+             + (r" & conj.\,/\,ADV$^\pm$ \\" if extra else r" \\"), r"\midrule"]
     for i, s in enumerate(series):
         if i:
             lines.append(r"\addlinespace")
@@ -65,7 +72,15 @@ def latex_results_table(series: list[Series], growth: str = "T") -> str:
             key = f"max: {s.argmax[k]}" if s.envelope else ('' if s.key is None else s.key)
             lines.append(f"{_tex(s.bound)} & {_tex(key)} & {t:g} & "
                          f"{'--' if d is None else d} & {_f(lo)} & {_f(up)} & "
-                         f"{'--' if gap is None else '$' + _gtex(gap, 2) + '$'} \\\\")
+                         f"{'--' if gap is None else '$' + _gtex(gap, 2) + '$'}" + (" & --" if extra else "")
+                         + " \\\\")
+    by_label = {r.label: dict(zip(r.T, r.value)) for r in ratios}
+    for c in conj:
+        lines.append(r"\addlinespace")
+        rat = by_label.get(c.label, {})
+        for t, lo, d in zip(c.T, c.lower, c.domain_size):
+            lines.append(f"conjecture & {_tex('' if c.key is None else c.key)} & {t:g} & "
+                         f"{'--' if d is None else d} & {_f(lo)} & -- & -- & {_f(rat.get(t), 4)} \\\\")
     lines += [r"\bottomrule", r"\end{tabular}"]
     return "\n".join(lines) + "\n"
 
@@ -171,10 +186,10 @@ def latex_exact_table(columns: list[str], points: list[ExactPoint], meta: dict |
 
 
 # -- the files ------------------------------------------------------------------------------
-def _write_fit_tables(series: list[Series], fits: dict, growth: str, out: Path) -> list[Path]:
+def _write_fit_tables(series: list[Series], fits: dict, growth: str, out: Path, conj=(), ratios=()) -> list[Path]:
     """Write ``table_results.tex`` and ``table_fits.tex``; their paths."""
     t1 = out / "table_results.tex"
-    t1.write_text(latex_results_table(series, growth))
+    t1.write_text(latex_results_table(series, growth, conj, ratios))
     t2 = out / "table_fits.tex"
     t2.write_text(latex_fit_table(fits))
     return [t1, t2]
@@ -195,19 +210,19 @@ def _write_data(rows: list[StoredRow], certificate: dict, meta: dict, fits: dict
                 ) -> tuple[Path, Path, Path]:
     """Write ``data.csv``, ``data.json`` and ``fits.json``; their paths.
 
-    ``certificate`` maps each row's run key to its certificate path as the report shows it.
+    ``certificate`` maps each row's run key to its certificate path as the report shows it (rows without
+    one, e.g. conjecture rows, may be missing).  Conjecture rows fill ``gamma_params`` (the constants
+    used, JSON) and ``fitted``; the other rows leave them empty.
     """
-    data_rows = [dict(r.to_dict(), certificate=certificate[r.run_key]) for r in rows]
+    data_rows = [dict(r.to_dict(), certificate=certificate.get(r.run_key)) for r in rows]
     csv_path = out / "data.csv"
     cols = ["run_key", "kind", "bound", "params", "status", "lower", "upper", "gap", "domain_size",
-            "time_solve", "time_total", "spec_key", "certificate", "error", "created"]
+            "time_solve", "time_total", "spec_key", "certificate", "error", "created", "gamma_params", "fitted"]
     with open(csv_path, "w", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(cols)
         for r in rows:
-            w.writerow([json.dumps(r.params, sort_keys=True) if c == "params" else
-                        ("" if certificate[r.run_key] is None else certificate[r.run_key]) if c == "certificate" else
-                        ("" if getattr(r, c) is None else getattr(r, c)) for c in cols])
+            w.writerow([_csv_cell(r, c, certificate) for c in cols])
     json_path = out / "data.json"
     json_path.write_text(json.dumps({"study": portable_meta(meta), "rows": data_rows}, indent=1, sort_keys=True,
                                     default=str))
@@ -215,6 +230,21 @@ def _write_data(rows: list[StoredRow], certificate: dict, meta: dict, fits: dict
     fits_path.write_text(json.dumps({k: (v if isinstance(v, str) else v.to_dict()) for k, v in fits.items()},
                                     indent=1, allow_nan=False, default=str))
     return csv_path, json_path, fits_path
+
+
+def _csv_cell(r: StoredRow, c: str, certificate: dict):
+    if c == "params":
+        return json.dumps(r.params, sort_keys=True)
+    if c == "certificate":
+        return certificate.get(r.run_key) or ""
+    if c == "gamma_params":
+        p = r.values.get("params") if r.kind == "conjecture" else None
+        return "" if p is None else json.dumps(p, sort_keys=True)
+    if c == "fitted":
+        f = r.values.get("fitted") if r.kind == "conjecture" else None
+        return "" if f is None else str(bool(f)).lower()
+    v = getattr(r, c)
+    return "" if v is None else v
 
 
 def portable_meta(meta: dict) -> dict:
@@ -232,8 +262,9 @@ def portable_meta(meta: dict) -> dict:
 
 
 def _write_provenance(rows: list[StoredRow], certificate: dict, exact_rows: list[StoredRow] | None, meta: dict,
-                      store_path: str, out: Path, generated: str) -> Path:
-    """Write ``provenance.json`` (``exact_rows`` is ``None`` when the report has no exact points); its path."""
+                      store_path: str, out: Path, generated: str, conj_rows=()) -> Path:
+    """Write ``provenance.json`` (``exact_rows`` is ``None`` when the report has no exact points; conjecture
+    rows go under ``conjecture_points``); its path."""
     versions = sorted({json.dumps(r.versions, sort_keys=True) for r in rows})
     prov = {
         "generated": generated, "store": os.path.relpath(os.path.abspath(store_path), os.path.abspath(out)),
@@ -253,6 +284,10 @@ def _write_provenance(rows: list[StoredRow], certificate: dict, exact_rows: list
         prov["exact_points"] = [{"run_key": r.run_key, "spec_key": r.spec_key, "params": r.params,
                                  "request": r.solver, "status": r.status, "created": r.created,
                                  "versions": r.versions} for r in exact_rows]
+    if conj_rows:
+        prov["conjecture_points"] = [{"run_key": r.run_key, "spec_key": r.spec_key, "params": r.params,
+                                      "settings": r.solver, "status": r.status, "created": r.created,
+                                      "versions": r.versions} for r in conj_rows]
     prov_path = out / "provenance.json"
     prov_path.write_text(json.dumps(prov, indent=1, sort_keys=True, default=str))
     return prov_path

@@ -6,7 +6,8 @@ one sqlite database (standard library :mod:`sqlite3`, rollback journal,
 spec as JSON and its hash), which parameters, which *kind* of computation
 (``"adversary"`` for ADV/ADV± solves, ``"exact"`` for exact t-query points, whose
 lower/upper are the verified achievable success probability and its verified upper
-bound), the common numbers (lower, upper, gap, status), a JSON ``values`` column for
+bound, ``"conjecture"`` for a researcher's own Γ, whose lower is its certified ratio), the
+common numbers (lower, upper, gap, status), a JSON ``values`` column for
 anything kind-specific, the solver settings, the package versions, timings, the
 certificate path (relative to the store's folder), the error text of a failed point
 and the time it was written.
@@ -73,13 +74,13 @@ from typing import Any, Iterable
 from advbound.studies.store_file import (READABLE_SCHEMAS, SCHEMA_VERSION, StoreError, _guarded, _LEASE_NAMES,
                                          _StoreFile)
 from advbound.studies.store_leases import DEFAULT_LEASE, Claim, Lease, LeaseHolder, LeaseKeeper
-from advbound.studies.store_rows import (BOUND_SLACK, ERROR_STATUS, KNOWN_STATUSES, RowDefect, RowState, StoredRow,
-                                         _BadRow, _canon, _check_json_value, _decode_row, _NAMES, make_row,
+from advbound.studies.store_rows import (BOUND_SLACK, ERROR_STATUS, KNOWN_STATUSES, SKIPPED, RowDefect, RowState,
+                                         StoredRow, _BadRow, _canon, _check_json_value, _decode_row, _NAMES, make_row,
                                          package_versions, run_key)
 
 __all__ = ["SCHEMA_VERSION", "READABLE_SCHEMAS", "DEFAULT_LEASE", "BOUND_SLACK", "KNOWN_STATUSES",
            "StoreError", "StoredRow", "RowDefect", "RowState", "Store", "LeaseHolder", "Lease", "Claim",
-           "LeaseKeeper", "run_key", "make_row", "package_versions", "ERROR_STATUS"]
+           "LeaseKeeper", "run_key", "make_row", "package_versions", "ERROR_STATUS", "SKIPPED"]
 
 log = logging.getLogger("advbound")
 
@@ -274,7 +275,8 @@ class Store(_StoreFile):
                 if defect.run_key is not None:
                     out[defect.run_key] = RowState("defective", ("defective", defect.rowid))
                 continue
-            state = "ok" if row.success else ("invalid" if row.invalid else "failed")
+            state = ("ok" if row.success else "invalid" if row.invalid else "skipped" if row.skipped
+                     else "failed")
             out[row.run_key] = RowState(state, (row.status, row.created))
         return out
 

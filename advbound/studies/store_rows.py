@@ -24,7 +24,7 @@ from typing import Any
 
 from advbound import status as _status
 
-__all__ = ["BOUND_SLACK", "KNOWN_STATUSES", "ERROR_STATUS", "StoredRow", "RowDefect", "RowState", "run_key",
+__all__ = ["BOUND_SLACK", "KNOWN_STATUSES", "ERROR_STATUS", "SKIPPED", "StoredRow", "RowDefect", "RowState", "run_key",
            "make_row", "package_versions"]
 
 #: Relative slack allowed in ``lower <= upper`` (both verified in floating point).
@@ -33,9 +33,13 @@ BOUND_SLACK = 1e-9
 #: Status word of a point whose computation raised an exception (its ``error`` holds the text).
 ERROR_STATUS = _status.FAILED
 
+#: Status word of a point deliberately not computed (a conjecture point whose function is above the dense
+#: limit of :func:`advbound.evidence.usergamma.evaluate_gamma`): neither a success nor a failure, never rerun.
+SKIPPED = "skipped"
+
 #: Every status word a row may hold.
 KNOWN_STATUSES = frozenset({_status.OPTIMAL, _status.INACCURATE, _status.INFEASIBLE, _status.FAILED,
-                            _status.UNVERIFIED, _status.INVALID})
+                            _status.UNVERIFIED, _status.INVALID, SKIPPED})
 
 _COLUMNS = (
     ("run_key", "TEXT PRIMARY KEY"),
@@ -104,8 +108,9 @@ class StoredRow:
     """One stored point; JSON columns are decoded (``spec``, ``params``, ``values``, ``solver``, ``versions``).
 
     ``failed`` is true for rows whose status is not a success status (including computations that
-    raised, whose ``error`` is set, and points whose input is ``invalid``); failed rows are rerun only
-    on request, invalid ones only once their instance changes.  ``certificate`` is relative to the
+    raised, whose ``error`` is set, and points whose input is ``invalid``), except ``skipped`` rows
+    (not computed on purpose, e.g. too large); failed rows are rerun only
+    on request, invalid ones only once their instance changes, skipped ones never.  ``certificate`` is relative to the
     store's folder (:meth:`Store.certificate_path` resolves it).
     """
 
@@ -139,8 +144,13 @@ class StoredRow:
 
     @property
     def failed(self) -> bool:
-        """Opposite of :attr:`success`."""
-        return not self.success
+        """Not a success, and not :attr:`skipped`."""
+        return not self.success and not self.skipped
+
+    @property
+    def skipped(self) -> bool:
+        """True when the point was deliberately not computed (status ``skipped``, e.g. too large)."""
+        return self.status == SKIPPED
 
     @property
     def invalid(self) -> bool:
@@ -226,7 +236,8 @@ class RowDefect:
 class RowState:
     """What a run key's stored row means for a sweep.
 
-    ``state`` is ``"ok"`` (success: never recomputed), ``"failed"`` (recomputed on request),
+    ``state`` is ``"ok"`` (success: never recomputed), ``"skipped"`` (not computed on purpose: never
+    recomputed), ``"failed"`` (recomputed on request),
     ``"invalid"`` (input invalid: recomputed once the instance changes its hash) or
     ``"defective"`` (see :class:`RowDefect`: recomputed); ``seen`` identifies this version of the
     row (its status and creation time) for :meth:`Store.claim`.

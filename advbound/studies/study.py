@@ -9,7 +9,10 @@ are :mod:`advbound.studies.study_spec`; one point's computation and its stored r
 This module re-exports their public names.  Besides the adversary
 bounds a study may ask for exact t-query points (``exact = {queries = [1, 2]}``
 and/or ``exact = {error = 0.1, max_queries = 4}``, solved with
-:mod:`advbound.programs.exact`), stored as rows of kind ``"exact"``.
+:mod:`advbound.programs.exact`), stored as rows of kind ``"exact"``, and a conjectured Γ
+(``[study.conjecture]``, a callable ``gamma(x, y, **params)`` evaluated, and fitted on request, at
+every grid point), stored as rows of kind ``"conjecture"``; with ``fit = "once"`` the points whose
+fit the others reuse are computed first.
 Workers compute and return; only the calling process writes certificates and
 rows (see :mod:`advbound.studies.store`).  Several sweeps may run on one store at once:
 each claims a point (a lease in the store) before computing it, so every point is
@@ -47,13 +50,14 @@ from advbound.errors import AdvboundError
 from advbound.studies.store import DEFAULT_LEASE, LeaseHolder, LeaseKeeper, RowState, Store, StoredRow, package_versions
 from advbound.studies.study_point import _common, _failed_row, _record, solve_point
 from advbound.studies.study_pools import _executor, _Inline
-from advbound.studies.study_spec import (EXACT_DEFAULTS, EXACT_KIND, KIND, STUDY_KEYS, Point, StudySpec,  # noqa: F401
+from advbound.studies.study_spec import (CONJECTURE_KEYS, CONJECTURE_KIND, EXACT_DEFAULTS,  # noqa: F401
+                                         EXACT_KIND, KIND, STUDY_KEYS, Point, StudySpec, conjecture_settings,
                                          default_study_path, exact_settings, load_study, plan, solver_settings,
                                          study_meta)
 
 __all__ = ["StudySpec", "Point", "StudyRun", "Progress", "load_study", "default_study_path", "plan",
-           "solver_settings", "exact_settings", "solve_point", "run_study", "study_meta", "KIND", "EXACT_KIND",
-           "EXACT_DEFAULTS"]
+           "solver_settings", "exact_settings", "conjecture_settings", "solve_point", "run_study", "study_meta",
+           "KIND", "EXACT_KIND", "CONJECTURE_KIND", "EXACT_DEFAULTS", "CONJECTURE_KEYS"]
 
 log = logging.getLogger("advbound")
 
@@ -62,8 +66,9 @@ log = logging.getLogger("advbound")
 class StudyRun:
     """What :func:`run_study` did: numbers of points planned, skipped (already stored, or stored by
     another process meanwhile), solved successfully and failed in this run, the rows written, and the
-    store path; ``invalid`` counts the points of this run whose input is invalid, ``held`` lists the
-    points left to another live process as ``(Point, Lease)``."""
+    store path; ``invalid`` counts the points of this run whose input is invalid, ``too_large`` the
+    conjecture points of this run stored as skipped (above the dense limit; counted neither as solved
+    nor as failed), ``held`` lists the points left to another live process as ``(Point, Lease)``."""
 
     name: str
     store: str
@@ -74,6 +79,7 @@ class StudyRun:
     rows: tuple = ()
     invalid: int = 0
     held: tuple = ()
+    too_large: int = 0
 
     @property
     def ok(self) -> bool:
@@ -188,14 +194,19 @@ def run_study(study: StudySpec, *, store: Store | None = None, jobs: int = 1, sc
         progress.start(len(todo), skipped)
         held: list = []
         others = 0
-        if todo:
-            held, others = _compute_points(study, store, holder, todo, rows, progress, runner, scheduler=scheduler,
-                                           jobs=jobs, lease=lease, wait=wait)
+        anchors = {p.depends for p in pts if p.depends}
+        for phase in ([t for t in todo if t[0].run_key in anchors], [t for t in todo if t[0].run_key not in anchors]):
+            if phase:
+                h, o = _compute_points(study, store, holder, phase, rows, progress, runner, scheduler=scheduler,
+                                       jobs=jobs, lease=lease, wait=wait)
+                held += h
+                others += o
         computed = [r for r in rows if not r.invalid]
         failed = sum(1 for r in computed if r.failed)
-        return StudyRun(study.name, store.path, len(pts), skipped + others, len(computed) - failed, failed,
+        large = sum(1 for r in computed if r.skipped)
+        return StudyRun(study.name, store.path, len(pts), skipped + others, len(computed) - failed - large, failed,
                         tuple(rows), invalid=sum(1 for r in rows if r.invalid),
-                        held=tuple((p, ls) for p, _, ls in held))
+                        held=tuple((p, ls) for p, _, ls in held), too_large=large)
     finally:
         with contextlib.suppress(AdvboundError):
             store.release(holder)
@@ -243,8 +254,11 @@ def _compute_points(study: StudySpec, store: Store, holder: LeaseHolder, todo: l
     settings = solver_settings(study)
 
     def task_of(p):
-        return {"instance": study.instance, "params": p.params, "bound": p.bound, "kind": p.kind,
-                "settings": settings if p.kind != EXACT_KIND else dict(p.request or {})}
+        task = {"instance": study.instance, "params": p.params, "bound": p.bound, "kind": p.kind,
+                "settings": settings if p.kind not in (EXACT_KIND, CONJECTURE_KIND) else dict(p.request or {})}
+        if p.kind == CONJECTURE_KIND:
+            task.update(_conjecture_task(study, store, p))
+        return task
 
     def finish(p, out):
         row = _record(store, study, p, out, holder)
@@ -263,8 +277,31 @@ def _compute_points(study: StudySpec, store: Store, holder: LeaseHolder, todo: l
     finally:
         keeper.stop()
 
+def _conjecture_task(study: StudySpec, store: Store, p: Point) -> dict:
+    """What a conjecture task carries besides the settings: the callable to load (as resolved when the
+    study was read), its label and, for a point that reuses another point's fit, the fitted constants
+    (``reuse``) or why there are none (``reuse_error``)."""
+    cj = study.conjecture
+    out = {"callable": cj.get("resolved") or cj["callable"], "label": cj.get("label")}
+    if p.depends is None:
+        return out
+    at = (p.request or {}).get("anchor") or {}
+    where = " ".join(f"{k}={v}" for k, v in at.items())
+    row = store.get(p.depends)
+    if row is None:
+        out["reuse_error"] = (f"conjecture {cj.get('label')}: the fit at {where} (fit = \"once\") is not stored "
+                              "(another sweep may hold it); rerun the study")
+    elif not row.success:
+        out["reuse_error"] = (f"conjecture {cj.get('label')}: the fit at {where} (fit = \"once\") is {row.status}: "
+                              f"{row.error or row.message}")
+    else:
+        out["reuse"] = {"params": dict(row.values.get("params") or {}), "at": at}
+    return out
+
+
 def _identity(kind, params, bound, request) -> tuple:
-    what = bound if kind != EXACT_KIND else json.dumps(request or {}, sort_keys=True, default=str)
+    what = bound if kind not in (EXACT_KIND, CONJECTURE_KIND) else json.dumps(request or {}, sort_keys=True,
+                                                                              default=str)
     return kind, json.dumps(params, sort_keys=True, default=str), what
 
 
@@ -275,7 +312,8 @@ def _stale_invalid(store: Store, pts: Sequence[Point], name: str) -> list[str]:
     out = []
     for r in store.rows(study=name):
         if r.invalid:
-            key = current.get(_identity(r.kind, r.params, r.bound, r.solver if r.kind == EXACT_KIND else None))
+            key = current.get(_identity(r.kind, r.params, r.bound,
+                                        r.solver if r.kind in (EXACT_KIND, CONJECTURE_KIND) else None))
             if key is not None and key != r.run_key:
                 out.append(r.run_key)
     return out

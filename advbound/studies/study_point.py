@@ -5,6 +5,10 @@ for a failing computation: the failure is data), and the turning of its outcome 
 :class:`~advbound.studies.store.StoredRow` in the calling process: the certificate file is
 written under a temporary name and renamed into place before the row is committed, and a
 success whose verified lower bound exceeds its verified upper bound is stored as unverified.
+A conjecture point (``[study] conjecture``) loads the callable in the worker from its spec string,
+fits its constants when asked, and evaluates Γ on the dense path of
+:func:`advbound.evidence.usergamma.evaluate_gamma`; a function above the dense limit is stored as
+``skipped`` (too large), a callable that fails as ``failed`` with its one-line message.
 
 >>> _safe("T=5 rows=3 exact t=2")
 'T=5_rows=3_exact_t=2'
@@ -19,9 +23,10 @@ import traceback
 
 from advbound import status as _status
 from advbound.errors import AdvboundError
-from advbound.studies.store import (BOUND_SLACK, ERROR_STATUS, LeaseHolder, Store, StoredRow, make_row,
+from advbound.studies.store import (BOUND_SLACK, ERROR_STATUS, SKIPPED, LeaseHolder, Store, StoredRow, make_row,
                                     package_versions)
-from advbound.studies.study_spec import EXACT_KIND, Point, StudySpec, invalid_message, solver_settings
+from advbound.studies.study_spec import (CONJECTURE_KIND, EXACT_KIND, Point, StudySpec, _one_line, invalid_message,
+                                         solver_settings)
 
 __all__ = ["solve_point"]
 
@@ -36,7 +41,11 @@ def solve_point(task: dict) -> dict:
     :class:`~advbound.errors.AdvboundError` (the input is wrong, not the solver); always
     ``time_total`` (s) and ``versions``.  A task with ``kind == "exact"`` carries the
     request (one entry of :func:`exact_settings`) as ``settings`` and returns ``exact``
-    (``ExactResult.to_dict()``) instead of ``result``.
+    (``ExactResult.to_dict()``) instead of ``result``.  A task with ``kind == "conjecture"`` carries
+    :func:`~advbound.studies.study_spec.conjecture_settings` as ``settings``, the spec string to load as
+    ``callable``, its ``label`` and, when it reuses another point's fit, ``reuse`` (``{"params", "at"}``) or
+    ``reuse_error``; it returns ``conjecture`` (see :func:`_conjecture`), or ``skipped`` (one line) for a
+    function above the dense limit.
     """
     t0 = time.perf_counter()
     try:
@@ -58,6 +67,8 @@ def _compute(task: dict) -> dict:
         return {"ok": False, "invalid": True, "error": invalid_message(err)}
     if task.get("kind") == EXACT_KIND:
         return {"ok": True, "exact": _solve_exact(f, s).to_dict()}
+    if task.get("kind") == CONJECTURE_KIND:
+        return _conjecture(f, task)
     from advbound.programs.solve import solve
     res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
                 method=s["method"], **s["options"])
@@ -72,15 +83,62 @@ def _solve_exact(f, s: dict):
     return least_queries(f, s["error"], max_queries=s.get("max_queries"), decision_tol=s["decision_tol"], **kw)
 
 
+def _conjecture(f, task: dict) -> dict:
+    """Evaluate (and fit, as the settings ask) the conjectured Γ for ``f``; never raises for a bad callable.
+
+    Returns ``{"ok": True, "conjecture": {...}}`` with ``lower`` (the certified ratio), ``params`` (the
+    constants used), ``fitted``, ``fitted_at`` (the grid point whose fit gave them), ``fit`` (the
+    :class:`~advbound.programs.gammafit.FitResult` as a dict, for a fit done here), ``report`` (facts of
+    the :class:`~advbound.evidence.usergamma.GammaReport`) and ``time``; ``{"ok": True, "skipped": msg}``
+    above the dense limit; ``{"ok": False, "error": msg}`` with a one-line message otherwise.
+    """
+    from advbound.evidence.gammainput import DENSE_LIMIT, GammaError, gamma_from_callable, load_callable
+    from advbound.evidence.usergamma import evaluate_gamma
+    from advbound.functions.sizing import TooLargeError
+    s = task["settings"]
+    label = task.get("label") or s["callable"]
+    size = len(f.inputs)
+    if size > DENSE_LIMIT:
+        return {"ok": True, "skipped": f"skipped: too large: |D| = {size} inputs, above the dense limit "
+                                       f"{DENSE_LIMIT} of advbound gamma", "domain_size": size}
+    if task.get("reuse_error"):
+        return {"ok": False, "error": task["reuse_error"], "domain_size": size}
+    t0 = time.perf_counter()
+    fit = None
+    try:
+        func = load_callable(task["callable"])
+        reuse = task.get("reuse")
+        if s["fit"] == "each" or (s["fit"] == "once" and reuse is None):
+            from advbound.programs.gammafit import fit_gamma_params
+            fit = fit_gamma_params(f, func, s["params"], method=s["fit_method"], starts=s["starts"],
+                                   random_state=s["seed"], max_evaluations=s["max_evals"], name=label)
+            params, fitted_at = fit.params, task["params"]
+        elif reuse is not None:
+            params, fitted_at = dict(reuse["params"]), reuse["at"]
+        else:
+            params, fitted_at = dict(s["params"]), None
+        rep = evaluate_gamma(f, gamma_from_callable(f, func, name=label, params=params))
+    except TooLargeError as err:
+        return {"ok": True, "skipped": f"skipped: too large: {_one_line(err)}", "domain_size": size}
+    except GammaError as err:
+        return {"ok": False, "error": f"conjecture {label}: {_one_line(err)}", "domain_size": size}
+    facts = {k: v for k, v in rep.to_dict().items() if k in ("norm", "binding_names", "method", "was_symmetric",
+                                                             "zeroed_entries", "message")}
+    return {"ok": True, "conjecture": {"lower": rep.certified_ratio, "params": params, "fitted": fitted_at is not None,
+                                       "fitted_at": fitted_at, "fit": None if fit is None else fit.to_dict(),
+                                       "report": facts, "domain_size": size, "time": time.perf_counter() - t0}}
+
+
 def _safe(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.=-]+", "_", text)[:80]
 
 
 def _common(study: StudySpec, point: Point, out: dict) -> dict:
     exact = point.kind == EXACT_KIND
+    own = exact or point.kind == CONJECTURE_KIND
     return dict(kind=point.kind, spec_key=point.spec_key, spec=point.spec, params=point.params,
                 bound=None if exact else point.bound, study=study.name,
-                solver=dict(point.request or {}) if exact else solver_settings(study),
+                solver=dict(point.request or {}) if own else solver_settings(study),
                 versions=out.get("versions", {}), time_total=out.get("time_total"))
 
 
@@ -96,7 +154,9 @@ def _record(store: Store, study: StudySpec, point: Point, out: dict, holder: Lea
     """Write the certificate (temp file, then rename) and then the row (one transaction, which also
     releases ``holder``'s lease on the point)."""
     common = _common(study, point, out)
-    if not out.get("ok"):
+    if point.kind == CONJECTURE_KIND and not out.get("invalid"):
+        row = _conjecture_row(study, point, out, common)
+    elif not out.get("ok"):
         row = _failed_row(point, out, common)
     elif point.kind == EXACT_KIND:
         row = _exact_row(point, out["exact"], common)
@@ -145,6 +205,30 @@ def _exact_row(point: Point, d: dict, common: dict) -> StoredRow:
     return make_row(point.run_key, status=status, message=message, lower=d.get("success_probability"),
                     upper=d.get("upper_bound"), objective=d.get("objective"), domain_size=d.get("domain_size"),
                     values=d, time_solve=(d.get("solver") or {}).get("time"), **common)
+
+
+def _conjecture_row(study: StudySpec, point: Point, out: dict, common: dict) -> StoredRow:
+    """The row of a conjecture point: ``lower`` = the certified bound, ``values`` = constants used and how."""
+    cj = study.conjecture or {}
+    base = {"callable": cj.get("callable"), "label": cj.get("label"), "fit_mode": (point.request or {}).get("fit")}
+    size = out.get("domain_size")
+    if not out.get("ok"):
+        msg = _one_line_text(out.get("error", "unknown error"))
+        return make_row(point.run_key, status=ERROR_STATUS, message=msg, error=msg, domain_size=size, values=base,
+                        **common)
+    if "skipped" in out:
+        return make_row(point.run_key, status=SKIPPED, message=out["skipped"], domain_size=size, values=base,
+                        **common)
+    c = out["conjecture"]
+    values = dict(base, params=c["params"], fitted=c["fitted"], fitted_at=c["fitted_at"], fit=c["fit"],
+                  report=c["report"])
+    return make_row(point.run_key, status=_status.OPTIMAL, message=f"conjecture {base['label']}: "
+                    + str(c["report"].get("message", "")), lower=c["lower"], domain_size=c["domain_size"],
+                    values=values, time_solve=c["time"], **common)
+
+
+def _one_line_text(text) -> str:
+    return " ".join(str(text).split()) or "unknown error"
 
 
 def _num(v):

@@ -55,6 +55,9 @@ def register(subparsers) -> None:
     p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
     p.add_argument("--allow-large", action="store_true",
                    help="evaluate a callable even when the dense Γ exceeds the memory this machine has available")
+    p.add_argument("--vectorised", action="store_true",
+                   help="the callable takes two (|D|, N) arrays of symbols, X and Y, and returns the |D| values "
+                        "Γ(X[i], Y[i]) (one call per input instead of one per pair)")
     p.add_argument("--orbits", action="store_true",
                    help="for interchangeable rows: evaluate a row-invariant callable once per pair orbit, "
                         "without listing the inputs (checked on random row permutations)")
@@ -179,9 +182,10 @@ def _gamma(args, f, func, params):
         from advbound.programs.gammafit import fit_gamma_params
         fit = fit_gamma_params(f, func, params, method=args.fit_method, starts=args.starts,
                                random_state=args.seed, max_evaluations=args.max_evals,
-                               name=args.callable, allow_large=args.allow_large)
+                               name=args.callable, allow_large=args.allow_large, vectorised=args.vectorised)
         params = fit.params
-    gamma = gamma_from_callable(f, func, name=args.callable, allow_large=args.allow_large, params=params)
+    gamma = gamma_from_callable(f, func, name=args.callable, allow_large=args.allow_large, params=params,
+                                vectorised=args.vectorised)
     return gamma, f"callable {args.callable}", fit
 
 
@@ -189,6 +193,9 @@ def run(args) -> int:
     """Handler of ``advbound gamma``; returns the exit code."""
     from advbound.evidence.usergamma import evaluate_gamma, improve_gamma, load_callable
 
+    if args.vectorised and not args.callable:
+        from advbound.errors import InvalidFunctionError
+        raise InvalidFunctionError("--vectorised needs --callable (a function of the arrays X and Y)")
     lifted = None
     if args.lift:
         lifted = _lifted(args)

@@ -22,6 +22,9 @@ def check_orbit_options(args) -> None:
 
     if not args.callable:
         raise InvalidFunctionError("--orbits needs --callable: an entries file lists pairs, not orbits")
+    if args.vectorised:
+        raise InvalidFunctionError("--vectorised does not combine with --orbits: the orbit form calls Γ(x, y) once "
+                                   "per pair orbit")
     for opt, on in (("--improve", args.improve), ("--fit", args.fit)):
         if on:
             raise InvalidFunctionError(f"{opt} does not combine with --orbits: fit or improve at a size the dense "

@@ -31,7 +31,7 @@ import scipy.sparse as sp
 from advbound.errors import AdvboundError
 
 __all__ = ["GammaError", "load_callable", "check_params", "call_gamma", "gamma_from_callable", "gamma_from_entries",
-           "DENSE_LIMIT"]
+           "position_profiles", "DENSE_LIMIT"]
 
 #: Above this many inputs Γ is kept sparse and norms come from iterative solvers.
 DENSE_LIMIT = 2500
@@ -182,8 +182,14 @@ def check_params(func, params, *, name: str | None = None) -> dict:
 
 
 def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool = False,
-                        params: dict | None = None) -> np.ndarray:
+                        params: dict | None = None, vectorised: bool = False) -> np.ndarray:
     """Dense ``Γ[x, y] = func(x, y, **params)`` over all ordered pairs of inputs (``|D|²`` calls), unmodified.
+
+    With ``vectorised=True`` ``func`` is called once per input ``x`` instead, as
+    ``func(X, Y, **params)`` with two ``(|D|, N)`` arrays of one-character strings (row ``i`` of ``X``
+    is ``x``, row ``i`` of ``Y`` the ``i``-th input), and returns the ``|D|`` values
+    ``Γ[x, y_i]``: ``|D|`` calls, each free to use numpy on whole arrays
+    (:func:`position_profiles` turns such arrays into positions and values of position-search rows).
 
     Parameters
     ----------
@@ -215,10 +221,58 @@ def gamma_from_callable(f, func, *, name: str | None = None, allow_large: bool =
     label = name or getattr(func, "__qualname__", None) or _short(func)
     kw = check_params(func, params, name=name)
     g = np.empty((size, size))
+    if vectorised:
+        Y = np.array([list(y) for y in inputs], dtype="<U1").reshape(size, f.n)
+        for i, x in enumerate(inputs):
+            g[i] = _call_rows(func, np.broadcast_to(Y[i], Y.shape), Y, kw, label, x)
+        return g
     for i, x in enumerate(inputs):
         for k, y in enumerate(inputs):
             g[i, k] = call_gamma(func, x, y, kw, label)
     return g
+
+
+def _call_rows(func, X, Y, kw: dict, label: str, x: str) -> np.ndarray:
+    """One vectorised call: ``func(X, Y, **kw)`` as ``len(Y)`` finite floats, else a one-line GammaError."""
+    try:
+        val = func(X, Y, **kw)
+    except SystemExit as err:
+        raise GammaError(f"gamma callable {label} called sys.exit({_short(err.code)}) at input {x!r}") from None
+    except Exception as err:
+        raise GammaError(f"vectorised gamma at input {x!r} raised {type(err).__name__}: {err}") from None
+    try:
+        out = np.asarray(val, dtype=float)
+    except (TypeError, ValueError, OverflowError) as err:
+        raise GammaError(f"vectorised gamma at input {x!r} returned {_short(val)}, not an array of numbers "
+                         f"({err})") from None
+    if out.shape != (len(Y),):
+        raise GammaError(f"vectorised gamma at input {x!r} returned shape {out.shape}, expected ({len(Y)},) "
+                         f"(one value per row of Y)")
+    bad = np.flatnonzero(~np.isfinite(out))
+    if bad.size:
+        y = "".join(Y[bad[0]])
+        raise GammaError(f"vectorised gamma at pair ({x!r}, {y!r}) returned {out[bad[0]]!r}, not a finite number")
+    return out
+
+
+def position_profiles(X: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
+    """``(positions, values)`` of arrays of inputs of ``rows`` position-search rows (for vectorised Γ).
+
+    ``X`` is an ``(m, N)`` array of one-character strings (``N = rows · L``); ``positions[j, r]`` is the
+    1-based position of the non-star symbol of row ``r`` of input ``j`` and ``values[j, r]`` that symbol
+    (0 or 1).  Rows without exactly one non-star symbol give position 0.
+
+    >>> X = np.array([list("0**" + "**1")])
+    >>> position_profiles(X, 2)
+    (array([[1, 3]]), array([[0, 1]]))
+    """
+    m, N = X.shape
+    L = N // rows
+    R = X.reshape(m, rows, L)
+    nonstar = R != "*"
+    pos = np.where(nonstar.sum(axis=2) == 1, nonstar.argmax(axis=2) + 1, 0)
+    val = np.take_along_axis(R, np.maximum(pos - 1, 0)[:, :, None], axis=2)[:, :, 0] == "1"
+    return pos, val.astype(int)
 
 
 def call_gamma(func, x: str, y: str, kw: dict, label: str) -> float:

@@ -116,7 +116,7 @@ def _check_options(method, starts, max_evaluations, spread):
 
 def fit_gamma_params(f, func, start: dict, *, method: str = "nelder-mead", starts: int = 4,
                      random_state: int = 0, max_evaluations: int = 300, spread: float = 0.5,
-                     name: str | None = None, allow_large: bool = False) -> FitResult:
+                     name: str | None = None, allow_large: bool = False, vectorised: bool = False) -> FitResult:
     """Choose the constants of ``func(x, y, **params)`` maximising the certified bound for ``f``.
 
     Parameters
@@ -138,7 +138,7 @@ def fit_gamma_params(f, func, start: dict, *, method: str = "nelder-mead", start
         Relative size of the perturbations (see the module docstring).
     name : str, optional
         How messages name the callable.
-    allow_large : bool
+    allow_large, vectorised : bool
         Passed to :func:`~advbound.evidence.gammainput.gamma_from_callable`.
 
     Raises
@@ -164,7 +164,7 @@ def fit_gamma_params(f, func, start: dict, *, method: str = "nelder-mead", start
         params = dict(zip(names, (float(v) for v in x)))
         try:
             value = evaluate_gamma(f, gamma_from_callable(f, func, name=name, allow_large=allow_large,
-                                                          params=params)).certified_ratio
+                                                          params=params, vectorised=vectorised)).certified_ratio
         except GammaError:
             if at_start:
                 raise

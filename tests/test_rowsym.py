@@ -192,3 +192,23 @@ def test_solve_rows_refuses_non_row_function():
     from advbound.errors import InvalidFunctionError
     with pytest.raises(InvalidFunctionError, match="interchangeable rows"):
         solve_rows(majority_function(3))
+
+
+@pytest.mark.parametrize("n,T", [(3, 6), (3, 8)])
+def test_positive_bound_needs_only_the_trivial_block(n, T):
+    """For W >= 0 the Perron vector of every D^-1/2 (W∘Δ) D^-1/2 is row-invariant (Perron–Frobenius, common
+    knowledge), so the trivial block alone gives ADV: the same value as the dense positive program."""
+    import dataclasses
+    from advbound.functions.builders import position_search_composition
+    from advbound.functions.rowbasis import row_basis
+    from advbound.programs.rowsym import RowProgram, solve_reduced
+    from advbound.programs.solve import solve
+
+    basis = row_basis(position_search_family("or", n, T, max_ones=1))
+    trivial = tuple(b for b in basis.blocks if tuple(b.shape) == (n - 1,))
+    prog = RowProgram(dataclasses.replace(basis, blocks=trivial), "positive")
+    pt = solve_reduced(prog)
+    value = float(2 * prog.pair_counts @ pt.x[:prog.n_weights])
+    dense = solve(position_search_composition("or", n, T - n + 1, T, max_ones=1), bound="positive",
+                  method="dense", solver="CLARABEL")
+    assert dense.lower <= value * (1 + 1e-6) and value <= dense.upper * (1 + 1e-6)

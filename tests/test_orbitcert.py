@@ -171,3 +171,26 @@ def test_dual_of_another_basis_convention_is_not_matched(tmp_path, capsys):
     capsys.readouterr()
     assert main(["verify", str(tmp_path / "other.npz")]) == 1
     assert "[FAIL] dual_matches" in capsys.readouterr().out
+
+
+def test_trivial_block_dual_proves_only_the_positive_bound(tmp_path, capsys):
+    """The positive bound is solved on the trivial block alone (metadata cones = "trivial"); the file verifies
+    as written, and the same file relabelled as the general bound fails dual_matches (its dual says nothing
+    about the other blocks).  The re-checker does not read the reduced dual (docs/evidence.md) and still
+    verifies the lower bound of the non-negative Γ, which holds for the general bound too."""
+    inst = ROOT / "instances" / "or3_sum_T.toml"
+    path = tmp_path / "pos.npz"
+    assert main(["solve", str(inst), "--set", "T=6", "--bound", "positive", "--save-certificate", str(path)]) == 0
+    capsys.readouterr()
+    z = dict(np.load(path))
+    meta = json.loads(str(z["metadata"]))
+    assert meta["cones"] == "trivial" and meta["bound"] == "positive"
+    assert main(["verify", str(path)]) == 0
+    capsys.readouterr()
+    meta["bound"] = "general"
+    meta.pop("claimed_upper", None)
+    z["metadata"] = np.array(json.dumps(meta))
+    write(tmp_path / "relabelled.npz", z)
+    assert main(["verify", str(tmp_path / "relabelled.npz")]) == 1
+    assert "[FAIL] dual_matches" in capsys.readouterr().out
+    assert recheck(tmp_path / "relabelled.npz").returncode == 0

@@ -65,7 +65,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from advbound.errors import InvalidFunctionError, SolverError
-from advbound.evidence.orbitcheck import DENSE_CHECK_LIMIT, cone_keys, sides, verify_orbit_certificate
+from advbound.evidence.orbitcheck import (DENSE_CHECK_LIMIT, cone_keys, sides, trivial_basis,
+                                         verify_orbit_certificate)
 from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
@@ -275,7 +276,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
                                    "with equal costs, the domain closed under permuting them and the output "
                                    "unchanged by it")
     prog = formulate_rows(fam, bound)
-    pt = solve_reduced(prog, tol=tol, max_iters=max_iters, verbose=verbose)
+    # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
+    solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
+    pt = solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose)
     st = _status.from_cvxpy(pt.status)
     stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=pt.iterations,
                         tolerances={"tol": float(tol)}, options={"program": "rows"})
@@ -291,7 +294,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     meta = {"description": fam.description, "bound": bound, "method": "rows",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.raw_status,
                        "iterations": pt.iterations, "time": float(pt.seconds)},
-            "reduced": dict(prog.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
+            "reduced": dict(solved.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
+    if solved is not prog:
+        meta["cones"] = "trivial"
     cert = orbit_certificate(prog, gamma, rho, pt.duals, meta)
     rep = verify_orbit_certificate(cert, dense_limit=dense_check_limit, basis=prog.basis)
     cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))

@@ -38,7 +38,8 @@ def tour_lines() -> list[str]:
     assert m, "README.md has no '## A tour' section"
     blocks = re.findall(r"^```(?:bash|sh|shell|console)\n(.*?)^```", m.group(1), re.S | re.M)
     assert blocks, "the tour section has no fenced shell block"
-    return [line.strip() for b in blocks for line in b.splitlines() if line.strip()]
+    text = "\n".join(blocks).replace("\\\n", " ")       # a trailing backslash continues the command
+    return [line.strip() for line in text.splitlines() if line.strip()]
 
 
 @pytest.fixture

@@ -71,15 +71,8 @@ def _run_quotient(args, fam, func, params) -> int:
         write_params_file(args.save_params, params)
     norms = "exact (Γ >= 0)" if rep.exact_norms else "upper bounds from |Γ| (Γ has negative values)"
     if args.json:
-        d = {"function": fam.description, "source": f"callable {args.callable}", "mode": "orbits-quotient",
-             "lower": rep.lower if rep.passed else None, "gamma_lower": rep.gamma_lower,
-             "position_upper": list(rep.position_upper), "exact_norms": rep.exact_norms,
-             "binding": rep.binding + 1, "inputs": rep.inputs, "orbits": rep.orbits, "pair_orbits": rep.pair_orbits,
-             "calls": rep.calls, "invariance_samples": rep.invariance_samples,
-             "asymmetric_orbits": rep.asymmetric_orbits,
-             "checks": [{"name": n, "passed": ok, "detail": dt} for n, ok, dt in rep.checks],
-             "seconds": rep.seconds, "params": dict(params)}
-        print(json.dumps(d, indent=1))
+        print(json.dumps(_json(args, fam, rep, params, "orbits-quotient", position_upper=list(rep.position_upper),
+                               exact_norms=rep.exact_norms), indent=1))
         return 0 if rep.passed else 1
     _print_head(args, fam, rep, params)
     print(f"||Γ|| >= {rep.gamma_lower:.12g} (invariant test vector)")
@@ -89,6 +82,16 @@ def _run_quotient(args, fam, func, params) -> int:
     print(f"norms of Γ∘Δ: {norms}")
     _print_tail(rep, f"evaluation {rep.seconds['evaluate']:.1f} s, norms {rep.seconds['norms']:.1f} s")
     return 0 if rep.passed else 1
+
+
+def _json(args, fam, rep, params, mode: str, **norms) -> dict:
+    """The ``--json`` object of an orbit evaluation (either kind of norms)."""
+    return {"function": fam.description, "source": f"callable {args.callable}", "mode": mode,
+            "lower": rep.lower if rep.passed else None, "gamma_lower": rep.gamma_lower, **norms,
+            "binding": rep.binding + 1, "inputs": rep.inputs, "orbits": rep.orbits, "pair_orbits": rep.pair_orbits,
+            "calls": rep.calls, "invariance_samples": rep.invariance_samples, "asymmetric_orbits": rep.asymmetric_orbits,
+            "checks": [{"name": n, "passed": ok, "detail": dt} for n, ok, dt in rep.checks],
+            "seconds": rep.seconds, "params": dict(params)}
 
 
 def _print_head(args, fam, rep, params) -> None:
@@ -125,14 +128,7 @@ def _run_blocks(args, fam, func, params) -> int:
         from advbound.programs.gammafit import write_params_file
         write_params_file(args.save_params, params)
     if args.json:
-        d = {"function": fam.description, "source": f"callable {args.callable}", "mode": "orbits",
-             "lower": rep.lower if rep.passed else None, "gamma_lower": rep.gamma_lower,
-             "position_norms": list(rep.position_norms), "binding": rep.binding + 1, "inputs": rep.inputs,
-             "orbits": rep.orbits, "pair_orbits": rep.pair_orbits, "calls": rep.calls,
-             "invariance_samples": rep.invariance_samples, "asymmetric_orbits": rep.asymmetric_orbits,
-             "checks": [{"name": n, "passed": ok, "detail": d} for n, ok, d in rep.checks],
-             "seconds": rep.seconds, "params": dict(params)}
-        print(json.dumps(d, indent=1))
+        print(json.dumps(_json(args, fam, rep, params, "orbits", position_norms=list(rep.position_norms)), indent=1))
         return 0 if rep.passed else 1
     _print_head(args, fam, rep, params)
     print(f"||Γ|| >= {rep.gamma_lower:.12g} (invariant test vector)")

@@ -38,7 +38,7 @@ import numpy as np
 
 from advbound.evidence.gammainput import GammaError, call_gamma, check_params
 
-__all__ = ["QuotientReport", "quotient_gamma", "pair_tables"]
+__all__ = ["QuotientReport", "quotient_gamma", "pair_tables", "check_row_invariance"]
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -124,7 +124,12 @@ class _Reservoir:
                 self.items[j] = item
 
 
-def _check_invariance(fam, func, kw, label, sample, rng) -> int:
+def check_row_invariance(fam, func, kw, label, sample, rng) -> int:
+    """Compare Γ at a random row permutation of each sampled pair with its value there; return the count.
+
+    ``sample`` holds ``(cells, value)``: a pair orbit as table cells ``((a, b), count)`` and
+    ``func`` at its representative pair.  Raises a one-line GammaError at the first difference.
+    """
     n = fam.n
     for cells, v0 in sample:
         key = [pair for pair, t in cells for _ in range(t)]
@@ -206,7 +211,7 @@ def quotient_gamma(fam, func, params=None, *, samples: int = 200, seed: int = 0,
                     if ps:
                         u, v = orbit_index[(a, i)], orbit_index[(b, j)]
                         W[ps, u, v] += abs(g) * N * t / n
-    checked = _check_invariance(fam, func, kw, label, res.items, rng)
+    checked = check_row_invariance(fam, func, kw, label, res.items, rng)
     t1 = time.perf_counter()
     ok = math.isclose(total, expected, rel_tol=1e-12)
     checks = (("pair_count", ok, f"the pair orbits hold {total:.17g} pairs; the contents give {expected:.17g}"),)

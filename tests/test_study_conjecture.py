@@ -170,19 +170,30 @@ def test_failing_callable_is_a_failed_row_with_one_line(tmp_path):
     assert "Conjecture points without a value" in text and "no T=5" in text
 
 
-def test_function_above_the_dense_limit_is_skipped(tmp_path, monkeypatch):
+def test_function_above_the_dense_limit_is_evaluated_by_orbits_or_skipped(tmp_path, monkeypatch):
     """With the dense limit lowered to 15 inputs, T = 5 and 6 (16 and 20 inputs: 4·(T − 1), docs/studies.md)
-    are stored as skipped, counted neither as solved nor as failed, and not recomputed."""
+    are evaluated by orbits (interchangeable rows, constants given): √2 as at T = 4 (the same-profile star
+    gives √n at any T, tests/test_gamma_params.py).  A conjecture fitted at every point cannot be fitted
+    there: stored as skipped, counted neither as solved nor as failed, and not recomputed."""
     import advbound.evidence.gammainput as gi
     monkeypatch.setattr(gi, "DENSE_LIMIT", 15)
     p = _study_file(tmp_path, 'callable = "gamma_star.py:gamma"\n', rows="[2]")
     study = _load(tmp_path, p)
     run = run_study(study)
+    assert (run.solved, run.failed, run.too_large) == (6, 0, 0) and run.ok
+    rows = {r.params["T"]: r for r in _conj_rows(study.store)}
+    for T in (4, 5, 6):
+        assert rows[T].success and abs(rows[T].lower - math.sqrt(2)) < 1e-12
+    (tmp_path / "each").mkdir()
+    p = _study_file(tmp_path / "each", 'callable = "gamma_star.py:gamma"\nparams = { cross = 0.1 }\nfit = "each"\n',
+                    rows="[2]")
+    study = _load(tmp_path / "each", p)
+    run = run_study(study)
     assert (run.solved, run.failed, run.too_large) == (4, 0, 2) and run.ok
     rows = {r.params["T"]: r for r in _conj_rows(study.store)}
-    assert rows[4].success and abs(rows[4].lower - math.sqrt(2)) < 1e-12
     for T, size in ((5, 16), (6, 20)):
         assert rows[T].status == "skipped" and rows[T].message.startswith("skipped: too large")
+        assert "fitting needs the dense path" in rows[T].message
         assert rows[T].domain_size == size and not rows[T].failed
     assert run_study(study, retry_failed=True).skipped == 6
 

@@ -7,8 +7,10 @@ written under a temporary name and renamed into place before the row is committe
 success whose verified lower bound exceeds its verified upper bound is stored as unverified.
 A conjecture point (``[study] conjecture``) loads the callable in the worker from its spec string,
 fits its constants when asked, and evaluates Γ on the dense path of
-:func:`advbound.evidence.usergamma.evaluate_gamma`; a function above the dense limit is stored as
-``skipped`` (too large), a callable that fails as ``failed`` with its one-line message.
+:func:`advbound.evidence.usergamma.evaluate_gamma`; above the dense limit a function of interchangeable
+rows is evaluated by orbits (:func:`advbound.evidence.orbitquotient.quotient_gamma`, constants given or
+reused, not fitted), any other is stored as ``skipped`` (too large), and a callable that fails as
+``failed`` with its one-line message.
 
 >>> _safe("T=5 rows=3 exact t=2")
 'T=5_rows=3_exact_t=2'
@@ -98,11 +100,10 @@ def _conjecture(f, task: dict) -> dict:
     s = task["settings"]
     label = task.get("label") or s["callable"]
     size = len(f.inputs)
-    if size > DENSE_LIMIT:
-        return {"ok": True, "skipped": f"skipped: too large: |D| = {size} inputs, above the dense limit "
-                                       f"{DENSE_LIMIT} of advbound gamma", "domain_size": size}
     if task.get("reuse_error"):
         return {"ok": False, "error": task["reuse_error"], "domain_size": size}
+    if size > DENSE_LIMIT:
+        return _conjecture_by_orbits(f, task, label, size)
     t0 = time.perf_counter()
     fit = None
     try:
@@ -127,6 +128,35 @@ def _conjecture(f, task: dict) -> dict:
     return {"ok": True, "conjecture": {"lower": rep.certified_ratio, "params": params, "fitted": fitted_at is not None,
                                        "fitted_at": fitted_at, "fit": None if fit is None else fit.to_dict(),
                                        "report": facts, "domain_size": size, "time": time.perf_counter() - t0}}
+
+
+def _conjecture_by_orbits(f, task: dict, label: str, size: int) -> dict:
+    """Above the dense limit: a row-invariant Γ with given (or reused) constants, by quotient norms.
+
+    Fitting needs the dense path, so a point that would fit is skipped; a function without
+    interchangeable rows, or a callable that is not row-invariant, is skipped or failed with the reason.
+    """
+    from advbound.evidence.gammainput import DENSE_LIMIT, GammaError, load_callable
+    from advbound.evidence.orbitquotient import quotient_gamma
+    from advbound.functions.rowfamily import family_of
+    s, reuse = task["settings"], task.get("reuse")
+    too_large = f"skipped: too large: |D| = {size} inputs, above the dense limit {DENSE_LIMIT} of advbound gamma"
+    fam = family_of(f)
+    if fam is None or s["fit"] == "each" or (s["fit"] == "once" and reuse is None):
+        why = "the rows are not interchangeable" if fam is None else "fitting needs the dense path"
+        return {"ok": True, "skipped": f"{too_large} ({why})", "domain_size": size}
+    params, fitted_at = (dict(reuse["params"]), reuse["at"]) if reuse is not None else (dict(s["params"]), None)
+    t0 = time.perf_counter()
+    try:
+        rep = quotient_gamma(fam, load_callable(task["callable"]), params, name=label)
+    except GammaError as err:
+        return {"ok": False, "error": f"conjecture {label}: {_one_line(err)}", "domain_size": size}
+    if not rep.passed:
+        return {"ok": False, "error": f"conjecture {label}: the pair-orbit count check failed", "domain_size": size}
+    facts = {"method": "orbits (quotient norms)", "exact_norms": rep.exact_norms, "pair_orbits": rep.pair_orbits}
+    return {"ok": True, "conjecture": {"lower": rep.lower, "params": params, "fitted": fitted_at is not None,
+                                       "fitted_at": fitted_at, "fit": None, "report": facts, "domain_size": size,
+                                       "time": time.perf_counter() - t0}}
 
 
 def _safe(text: str) -> str:

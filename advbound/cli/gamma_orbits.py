@@ -57,18 +57,17 @@ def run_orbits(args, func, params) -> int:
         from advbound.errors import InvalidFunctionError
         raise InvalidFunctionError(f"--lift: the certificate has {rows} rows but {args.file} has {fam.n} at this "
                                    f"grid point; lift to an instance with as many rows")
-    if not args.blocks:
-        return _run_quotient(args, fam, func, params)
-    return _run_blocks(args, fam, func, params)
+    code = (_run_blocks if args.blocks else _run_quotient)(args, fam, func, params)
+    if args.save_params:
+        from advbound.programs.gammafit import write_params_file
+        write_params_file(args.save_params, params)
+    return code
 
 
 def _run_quotient(args, fam, func, params) -> int:
     from advbound.evidence.orbitquotient import quotient_gamma
 
     rep = quotient_gamma(fam, func, params, samples=args.samples, seed=args.seed, name=args.callable)
-    if args.save_params:
-        from advbound.programs.gammafit import write_params_file
-        write_params_file(args.save_params, params)
     norms = "exact (Γ >= 0)" if rep.exact_norms else "upper bounds from |Γ| (Γ has negative values)"
     if args.json:
         print(json.dumps(_json(args, fam, rep, params, "orbits-quotient", position_upper=list(rep.position_upper),
@@ -124,9 +123,6 @@ def _run_blocks(args, fam, func, params) -> int:
         if params:
             meta["params"] = dict(params)
         save_orbit_certificate(certificate_from_basis(basis, rep.gamma, rep.rho, None, meta), args.save_certificate)
-    if args.save_params:
-        from advbound.programs.gammafit import write_params_file
-        write_params_file(args.save_params, params)
     if args.json:
         print(json.dumps(_json(args, fam, rep, params, "orbits", position_norms=list(rep.position_norms)), indent=1))
         return 0 if rep.passed else 1

@@ -180,7 +180,7 @@ def test_trivial_block_dual_proves_only_the_positive_bound(tmp_path, capsys):
     verifies the lower bound of the non-negative Γ, which holds for the general bound too."""
     inst = ROOT / "instances" / "or3_sum_T.toml"
     path = tmp_path / "pos.npz"
-    assert main(["solve", str(inst), "--set", "T=6", "--bound", "positive", "--save-certificate", str(path)]) == 0
+    assert main(["solve", str(inst), "--set", "T=6", "--bound", "positive", "--method", "rows", "--save-certificate", str(path)]) == 0
     capsys.readouterr()
     z = dict(np.load(path))
     meta = json.loads(str(z["metadata"]))

@@ -73,7 +73,7 @@ UPPER_RTOL = 1e-6     # L <= upper (1+UPPER_RTOL); claimed_upper >= upper (1-UPP
 NAMES = {"format", "alphabet", "inputs", "outputs", "costs", "metadata", "gamma", "gamma_row",
          "gamma_col", "gamma_val", "dual_t", "dual_plus", "dual_minus"}
 ORBIT_NAMES = {"format", "alphabet", "letters", "contents", "outputs", "costs", "pair_keys", "gamma", "rho",
-               "metadata", "dual_sizes", "dual_values"}
+               "metadata", "dual_sizes", "dual_values", "query_weights"}
 ORBIT_REQUIRED = ("format", "alphabet", "letters", "contents", "outputs", "costs", "pair_keys", "gamma", "rho",
                   "metadata")
 REQUIRED = ("format", "alphabet", "inputs", "outputs", "costs", "metadata")
@@ -533,6 +533,9 @@ def accept_orbits(path, heads):
         need_kind(dv, "dual_values", "f", "floats", ndim=1)
         if (ds < 1).any() or sum(int(s) ** 2 for s in ds) != dv.shape[0] or not np.isfinite(dv).all():
             raise Refused("dual_sizes and dual_values do not describe finite square matrices")
+    weights = None
+    if "query_weights" in a:
+        weights = check_query_weights(a, contents, len(letters), width, bound)
     words, outs = [], []
     for cc, y in zip(contents, outputs):
         for w in arrangements(cc):
@@ -552,8 +555,54 @@ def accept_orbits(path, heads):
     symbols = np.array(inputs, dtype=f"U{n}").view(np.uint32).reshape(size, n)
     out = np.array([rank[y] for y in outputs_d], dtype=np.int64)
     check_gamma(g, inputs, outputs_d, out, bound)
+    query = None
+    if weights is not None:   # p_x(row r, position q) = weights[content of x, letter of row r, q]
+        cindex = {cc: k for k, cc in enumerate(contents)}
+        query = np.array([np.concatenate([weights[cindex[tuple(sorted(w))], v] for v in w])
+                          for w in words], dtype=np.float64)
     return dict(inputs=inputs, outputs=outputs_d, symbols=symbols, out=out, costs=np.tile(row_costs, rows),
-                meta=meta, bound=bound, gamma=g, form="orbits", dual=None, orbit=True)
+                meta=meta, bound=bound, gamma=g, form="orbits", dual=None, orbit=True, query=query)
+
+
+def check_query_weights(a, contents, n_letters, width, bound):
+    """The minimax witness: (contents, letters, positions) finite weights >= 0, zero for letters a
+    content does not hold, a positive total per content; positive bound only, never with a dual."""
+    qw = a["query_weights"]
+    need_kind(qw, "query_weights", "f", "floats", ndim=3)
+    if bound != "positive":
+        raise Refused("query_weights bound only the positive adversary bound")
+    if "dual_sizes" in a:
+        raise Refused("the file holds both dual matrices and query_weights")
+    if qw.shape != (len(contents), n_letters, width):
+        raise Refused(f"query_weights has shape {qw.shape}, expected {(len(contents), n_letters, width)}")
+    qw = qw.astype(np.float64)
+    if not np.isfinite(qw).all() or (qw < 0).any():
+        raise Refused("query_weights must be finite and >= 0")
+    for k, cc in enumerate(contents):
+        held = set(cc)
+        for v in range(n_letters):
+            if v not in held and (qw[k, v] != 0).any():
+                raise Refused(f"query_weights[{k}] is non-zero for letter {v}, which content {k} does not hold")
+        if not sum(qw[k, v].sum() for v in cc) > 0:
+            raise Refused(f"query_weights[{k}] are all 0 for the rows of content {k}")
+    return qw
+
+
+def minimax_upper(cert):
+    """max_x S_x / min over differing-output pairs of sum_i [x_i != y_i] sqrt(p_x(i) p_y(i)) / c_i, densely."""
+    p, symbols, out, costs = cert["query"], cert["symbols"], cert["out"], cert["costs"]
+    root = np.sqrt(p)
+    best = math.inf
+    for x in range(len(out)):
+        ys = np.flatnonzero(out > out[x])
+        if ys.size:
+            d = symbols[ys] != symbols[x][None, :]
+            sums = (d * root[ys] * root[x][None, :] / costs[None, :]).sum(axis=1)
+            best = min(best, float(sums.min()))
+    load = float(p.sum(axis=1).max())
+    # a float sum of at most n terms: allow its rounding before dividing
+    floor = best * (1 - 4 * p.shape[1] * EPS)
+    return load / floor if floor > 0 else None
 
 
 # =============================================================================================
@@ -769,6 +818,11 @@ def recheck(path, denominator=None, safety=1e-6, method="auto"):
     upper = None
     if cert["dual"] is not None:
         upper = check_dual(cert, lower, checks)
+    if cert.get("query") is not None:
+        upper = minimax_upper(cert)
+        ok = upper is not None and (lower is None or upper >= float(lower) * (1 - UPPER_RTOL))
+        checks.append(("minimax_witness", ok, "upper bound max_x S_x / (least pair sum) of the query weights, "
+                       f"over every pair of the expanded domain: {upper}"))
     cu = meta.get("claimed_upper")
     if cu is not None:
         floor = [] if lower is None else [float(lower) * (1 - UPPER_RTOL)]

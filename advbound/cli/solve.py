@@ -34,12 +34,13 @@ def register(subparsers) -> None:
     p.add_argument("--solver", default=None, metavar="NAME",
                    help="SCS or CLARABEL (default: the one the method picks; SCS for --method dense or symmetric)")
     p.add_argument("--tol", type=float, default=None, metavar="X",
-                   help="solver tolerance (default 1e-7, 1e-8 for the rows program; for --method factored the "
+                   help="solver tolerance (default 1e-7, 1e-8 for the rows program, 1e-6 for minimax; for --method factored the "
                         "target relative gap, default 1e-4)")
     p.add_argument("--max-iters", type=int, default=None, metavar="N", help="solver iteration limit")
     p.add_argument("--method", default="auto", metavar="NAME",
-                   help="auto (default: rows when rows are interchangeable, else dense if it fits in memory, "
-                        "else factored for two outputs), dense, symmetric, factored or rows")
+                   help="auto (default: for interchangeable rows minimax with --bound positive, else rows; otherwise dense if it fits in memory, "
+                        "else factored for two outputs), dense, symmetric, factored, rows or minimax (the positive "
+                        "bound of interchangeable rows)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a summary")
     p.add_argument("--save-certificate", metavar="PATH", default=None,
                    help="write the certificate (.npz) for later re-checking")

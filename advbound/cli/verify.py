@@ -132,7 +132,9 @@ def _run_orbit(args, cert, match, safety) -> int:
         print(f"  ||Γ∘Δ_(row, {j + 1})|| = {nj:.12g}   (cost {cert.costs[j]:g}){mark}")
     print(f"  ratio (float lower bound) = {rep.lower:.12g}")
     if rep.upper is not None:
-        print(f"  upper bound (weak duality from the stored reduced dual, float) = {rep.upper:.12g}")
+        how = ("the minimax witness of the stored query weights" if cert.query_weights is not None
+               else "weak duality from the stored reduced dual")
+        print(f"  upper bound ({how}, float) = {rep.upper:.12g}")
     if rig is not None:
         _print_rigorous("rigorous check of the expanded Γ (exact rationals):", rig)
     print(f"verdict: {'VERIFIED' if verified else 'NOT VERIFIED'}")

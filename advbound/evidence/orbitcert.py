@@ -18,6 +18,9 @@ orbit certificate needs no |D|² entries.  It holds:
 ``rho``           ``R`` finite values ≥ 0, not all 0: the invariant test vector ``δ = √ρ``
 ``dual_sizes``    optional: the size of each dual matrix, one per cone of the reduced program
 ``dual_values``   optional: the dual matrices, row-major, one after the other
+``query_weights`` optional, positive bound only: ``(R, A, L)`` finite weights ≥ 0, one per (content,
+                  letter, position), 0 for letters the content does not hold, a positive total per
+                  content: the minimax witness of an upper bound (:mod:`advbound.evidence.minimaxcheck`)
 ``metadata``      a JSON object, as for dense certificates (``bound``, claims, solver, ...)
 ================  =========================================================================
 
@@ -45,7 +48,7 @@ __all__ = ["ORBIT_FORMAT", "OrbitCertificate", "certificate_from_basis", "check_
 ORBIT_FORMAT = "advbound-orbit-certificate/1"
 _ORBIT_REQUIRED = ("format", "alphabet", "letters", "contents", "outputs", "costs", "pair_keys", "gamma", "rho",
                    "metadata")
-_ORBIT_OPTIONAL = ("dual_sizes", "dual_values")
+_ORBIT_OPTIONAL = ("dual_sizes", "dual_values", "query_weights")
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -66,6 +69,7 @@ class OrbitCertificate:
     rho: np.ndarray
     duals: tuple | None = None
     metadata: dict = dataclasses.field(default_factory=dict)
+    query_weights: np.ndarray | None = None
 
     @property
     def bound(self) -> str:
@@ -140,6 +144,16 @@ def check_orbit_acceptance(cert: OrbitCertificate, where: str = "orbit certifica
             z = np.asarray(z)
             if z.ndim != 2 or z.shape[0] != z.shape[1] or z.dtype.kind != "f" or not np.all(np.isfinite(z)):
                 raise fail(f"dual matrix {i} has shape {z.shape} and dtype {z.dtype} (finite square floats needed)")
+    if cert.query_weights is not None:
+        from advbound.evidence.minimaxcheck import check_weights
+
+        if cert.duals is not None:
+            raise fail("the certificate holds both dual matrices and query_weights (an upper-bound witness is one "
+                       "or the other)")
+        if cert.bound != "positive":
+            raise fail("query_weights bound only the positive adversary bound, but the certificate's bound is "
+                       f"{_show(cert.bound)}")
+        check_weights(cert.family(), cert.query_weights, fail)
 
 
 def _check_letters(letters, alphabet, length, fail) -> tuple:
@@ -254,6 +268,8 @@ def save_orbit_certificate(cert: OrbitCertificate, path) -> None:
         arrays["dual_sizes"] = np.array([np.asarray(z).shape[0] for z in cert.duals], dtype=np.int64)
         arrays["dual_values"] = np.concatenate([np.asarray(z, dtype=np.float64).ravel() for z in cert.duals]) \
             if cert.duals else np.zeros(0)
+    if cert.query_weights is not None:
+        arrays["query_weights"] = np.asarray(cert.query_weights, dtype=np.float64)
     with open(path, "wb") as fh:
         np.savez_compressed(fh, **arrays)
 
@@ -326,7 +342,9 @@ def _decode_orbit(arrays: dict, where: str) -> OrbitCertificate:
                             pair_keys=_get(arrays, "pair_keys", 3, "iu", where, "a 3-d integer array"),
                             gamma=_get(arrays, "gamma", 1, "f", where, "a 1-d float array").astype(np.float64),
                             rho=_get(arrays, "rho", 1, "f", where, "a 1-d float array").astype(np.float64),
-                            duals=duals, metadata=meta)
+                            duals=duals, metadata=meta,
+                            query_weights=(_get(arrays, "query_weights", 3, "f", where, "a 3-d float array")
+                                           .astype(np.float64) if "query_weights" in arrays else None))
 
 
 def save_any_certificate(cert, path) -> None:

@@ -232,6 +232,8 @@ def verify_orbit_certificate(cert, *, dense_limit: int = DENSE_CHECK_LIMIT, rtol
     from advbound.functions.rowbasis import expand_gamma, row_basis
 
     check_orbit_acceptance(cert)
+    if cert.query_weights is not None:
+        return _verify_weighted(cert, dense_limit, rtol)
     if basis is None:
         basis = row_basis(cert.family())
     checks = list(basis_checks(basis))
@@ -267,6 +269,42 @@ def verify_orbit_certificate(cert, *, dense_limit: int = DENSE_CHECK_LIMIT, rtol
             same, upper = False, None
             detail = "a dual on the trivial block alone bounds only the positive program"
         checks.append(("dual_matches", upper is not None and same, detail))
+    return _report(cert, checks, lower, upper, red, dense_lower)
+
+
+def _verify_weighted(cert, dense_limit: int, rtol: float) -> OrbitReport:
+    """A positive-bound certificate with query weights: quotient norms below, the minimax bound above.
+
+    Γ ≥ 0 (the acceptance rule), so the quotient norms of
+    :func:`advbound.evidence.orbitquotient.support_norms` are the norms themselves and no
+    representative set is built; up to ``dense_limit`` inputs the expanded Γ is checked densely too.
+    """
+    from advbound.evidence.minimaxcheck import minimax_upper
+    from advbound.evidence.orbitquotient import support_norms
+
+    fam = cert.family()
+    red = support_norms(fam, cert.pair_keys, cert.gamma)
+    red["position_norms"] = red["position_upper"]
+    lower = red["lower"]
+    checks = [("quotient_norms", red["exact_norms"], "Perron roots of the quotients over (last letter, content); "
+                                                     "exact because Γ >= 0")]
+    dense_lower = None
+    if fam.size <= dense_limit:
+        from advbound.evidence.certificate import Certificate
+        from advbound.evidence.verify import verify_certificate
+
+        f, G = expanded_gamma(cert)
+        rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G,
+                                             metadata={"bound": cert.bound}), bound=cert.bound)
+        dense_lower = rep.lower
+        ok = math.isclose(rep.lower, lower, rel_tol=rtol, abs_tol=1e-12) or rep.lower >= lower
+        checks.append(("dense_agrees", ok, f"expanded Γ ({f.size} inputs) gives {rep.lower:.10g}, "
+                                           f"quotient norms {lower:.10g}"))
+    mm = minimax_upper(fam, cert.query_weights)
+    upper = mm["upper"]
+    detail = (f"max load {mm['load']:.10g} / proved floor {mm['phi']:.10g} of the smallest pair sum over "
+              f"{mm['content_pairs']} content pairs (best assignment {mm['phi_found']:.10g})")
+    checks.append(("minimax_witness", upper is not None, detail))
     return _report(cert, checks, lower, upper, red, dense_lower)
 
 

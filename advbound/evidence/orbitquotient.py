@@ -38,7 +38,7 @@ import numpy as np
 
 from advbound.evidence.gammainput import GammaError, call_gamma, check_params
 
-__all__ = ["QuotientReport", "quotient_gamma", "pair_tables", "check_row_invariance"]
+__all__ = ["QuotientReport", "quotient_gamma", "support_norms", "pair_tables", "check_row_invariance"]
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -231,3 +231,56 @@ def quotient_gamma(fam, func, params=None, *, samples: int = 200, seed: int = 0,
                           inputs=int(fam.size), orbits=R, pair_orbits=K, calls=2 * K + checked,
                           invariance_samples=checked, asymmetric_orbits=int(asym), checks=checks,
                           seconds={"evaluate": t1 - t0, "norms": t2 - t1})
+
+
+def support_norms(fam, pair_keys, gamma) -> dict:
+    """The quotient bound of the invariant Γ that is ``gamma[k]`` on pair orbit ``pair_keys[k]`` and 0 elsewhere.
+
+    ``pair_keys`` is ``(K, n, 2)`` letter pairs (the orbit-certificate layout; each key sorted, its first
+    letters a content with a smaller output than its second).  Only the listed orbits are visited, so
+    the work is linear in ``K``.  Returns ``lower``, ``gamma_lower`` (from the best content-constant
+    test vector: ``‖Γ‖`` itself when Γ ≥ 0), ``position_upper`` (``‖|Γ|∘Δ_(n,p)‖``, exact for Γ ≥ 0),
+    ``binding`` and ``exact_norms``.
+    """
+    n, L, R = fam.n, fam.row_length, len(fam.contents)
+    index = {c: r for r, c in enumerate(fam.contents)}
+    mult = [Counter(c) for c in fam.contents]
+    sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
+    orbit_index = {}
+    for r, m in enumerate(mult):
+        for a in sorted(m):
+            orbit_index[(a, r)] = len(orbit_index)
+    osizes = np.empty(len(orbit_index))
+    for (a, r), u in orbit_index.items():
+        osizes[u] = sizes[r] * mult[r][a] / n
+    fact = [math.factorial(i) for i in range(n + 1)]
+    A = np.zeros((R, R))
+    W = np.zeros((L, len(orbit_index), len(orbit_index)))
+    differ: dict = {}
+    negative = False
+    for key, g in zip(np.asarray(pair_keys, dtype=np.int64).tolist(), np.asarray(gamma, dtype=float).tolist()):
+        if g == 0.0:
+            continue
+        negative |= g < 0
+        i, j = index[tuple(sorted(a for a, _ in key))], index[tuple(sorted(b for _, b in key))]
+        cells = Counter(tuple(p) for p in key)
+        N = fact[n] / math.prod(fact[t] for t in cells.values())
+        A[i, j] += N * g
+        for (a, b), t in cells.items():
+            ps = differ.get((a, b))
+            if ps is None:
+                ps = differ[(a, b)] = [p for p in range(L) if fam.differ(p, a, b)]
+            if ps:
+                W[ps, orbit_index[(a, i)], orbit_index[(b, j)]] += abs(g) * N * t / n
+    lam, vec = _top(A + A.T, sizes)
+    gamma_lower = 0.0
+    for d in (vec / np.sqrt(sizes), np.abs(vec) / np.sqrt(sizes)):   # any vector gives a lower bound
+        den = float(sizes @ (d * d))
+        if den > 0:
+            gamma_lower = max(gamma_lower, abs(float(d @ (A + A.T) @ d)) / den)
+    upper = [(_top(W[p] + W[p].T, osizes)[0] if W[p].any() else 0.0) for p in range(L)]
+    scaled = np.asarray(upper) / np.asarray(fam.costs, dtype=float)
+    worst = float(scaled.max())
+    return {"lower": gamma_lower / worst if worst > 0 else 0.0, "gamma_lower": gamma_lower,
+            "position_upper": [float(u) for u in upper], "binding": int(np.argmax(scaled)),
+            "exact_norms": not negative}

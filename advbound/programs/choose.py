@@ -2,10 +2,11 @@
 
 The rule, in order (the measurements behind it are in docs/solving.md, "Choosing a program"):
 
-1. **rows**: the rows of ``f`` are interchangeable (:func:`advbound.functions.rowfamily.family_of`:
+1. **minimax** for the positive bound, **rows** for ADV±: the rows of ``f`` are interchangeable (:func:`advbound.functions.rowfamily.family_of`:
    equal blocks with equal costs, a domain closed under permuting them and an output unchanged by
    it).  The S_n-reduced program's size depends on the number of input orbits, not on ``|D|``; it
-   runs on CLARABEL.
+   runs on CLARABEL.  For ADV the minimax program (:mod:`advbound.programs.minimax`) needs neither
+   a representative set nor PSD blocks, only second-order cones, and is much faster.
 2. **dense**: otherwise, when the dense program fits in memory
    (:func:`advbound.functions.sizing.solve_estimate` against
    :func:`advbound.functions.sizing.memory_budget`), with the solver of the smaller estimated time
@@ -60,6 +61,10 @@ def choose_method(f: PartialFunction, bound: str = "general", solver: str | None
     """
     name = None if solver is None else str(solver).upper()
     fam = family_of(f)
+    if fam is not None and name in (None, "CLARABEL") and bound == "positive":
+        return MethodChoice("minimax", "CLARABEL",
+                            f"{fam.n} interchangeable rows and the positive bound: the minimax program on "
+                            f"{len(fam.contents)} input orbits (cutting planes) instead of {fam.size} inputs")
     if fam is not None and name in (None, "CLARABEL"):
         return MethodChoice("rows", "CLARABEL",
                             f"{fam.n} interchangeable rows: the S_{fam.n}-reduced program on "

@@ -15,9 +15,9 @@ to solve).
 
 Methods: ``"auto"`` (the default) picks one of the others by
 :func:`advbound.programs.choose.choose_method`; ``"dense"`` (this module: one dense SDP over the
-whole domain); ``"symmetric"``, ``"factored"`` and ``"rows"`` are dispatched to
+whole domain); ``"symmetric"``, ``"factored"``, ``"rows"`` and ``"minimax"`` are dispatched to
 :mod:`advbound.programs.symmetric`, :mod:`advbound.programs.factored` and
-:mod:`advbound.programs.rowsym`.  The result's ``method`` names the program that ran.
+:mod:`advbound.programs.rowsym` and :mod:`advbound.programs.minimax`.  The result's ``method`` names the program that ran.
 """
 
 from __future__ import annotations
@@ -44,7 +44,8 @@ log = logging.getLogger("advbound")
 #: method name -> (module, function) for the methods implemented outside this module.
 _DISPATCH = {"symmetric": ("advbound.programs.symmetric", "solve_symmetric"),
              "factored": ("advbound.programs.factored", "solve_factored"),
-             "rows": ("advbound.programs.rowsym", "solve_rows")}
+             "rows": ("advbound.programs.rowsym", "solve_rows"),
+             "minimax": ("advbound.programs.minimax", "solve_minimax_rows")}
 METHODS = ("auto", "dense") + tuple(_DISPATCH)
 
 #: Γ support thresholds tried by :func:`solve`; each gives a valid lower bound, the best is kept.
@@ -83,10 +84,11 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
         Let the solver print progress.
     with_dual : bool
         Also verify a dual witness and report ``upper``.
-    method : {"auto", "dense", "symmetric", "factored", "rows"}
+    method : {"auto", "dense", "symmetric", "factored", "rows", "minimax"}
         ``"auto"`` (default) picks by :func:`advbound.programs.choose.choose_method` and says why in
         ``result.method_reason``; ``"rows"``: the S_n-reduced program of interchangeable rows
-        (:mod:`advbound.programs.rowsym`).
+        (:mod:`advbound.programs.rowsym`); ``"minimax"``: the positive bound of interchangeable rows by
+        cutting planes on its minimax form (:mod:`advbound.programs.minimax`).
     dual_source : {"multipliers", "program"}
         Where the dual witness comes from (see :mod:`advbound.programs.sdp`).
     repair_tol : float
@@ -127,13 +129,13 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
         method, solver, reason = choice.method, choice.solver, choice.reason
         log.info("method auto: %s (%s)", method, reason)
     if tol is None:
-        tol = {"factored": 1e-4, "rows": 1e-8}.get(method, 1e-7)
+        tol = {"factored": 1e-4, "rows": 1e-8, "minimax": 1e-6}.get(method, 1e-7)
     if method in _DISPATCH:
         modname, funcname = _DISPATCH[method]
         func = getattr(importlib.import_module(modname), funcname)
         # pass the common settings the other method declares; everything else goes through **options
         params = inspect.signature(func).parameters
-        chosen = solver if method == "rows" else (solver or "SCS")
+        chosen = solver if method in ("rows", "minimax") else (solver or "SCS")
         extra = {k: v for k, v in dict(solver=chosen, max_iters=max_iters, with_dual=with_dual).items()
                  if k in params}
         res = func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)

@@ -63,6 +63,10 @@ def solve_point(task: dict) -> dict:
 def _compute(task: dict) -> dict:
     from advbound.functions.instance import build_instance
     s = task["settings"]
+    if task.get("kind") not in (EXACT_KIND, CONJECTURE_KIND):
+        res = _minimax_by_orbits(task)
+        if res is not None:
+            return {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
     try:
         f = build_instance(task["instance"], task["params"])
     except AdvboundError as err:
@@ -75,6 +79,30 @@ def _compute(task: dict) -> dict:
     res = solve(f, bound=task["bound"], solver=s["solver"], tol=s["tol"], max_iters=s["max_iters"],
                 method=s["method"], **s["options"])
     return {"ok": True, "result": res.to_dict(), "certificate": res.certificate}
+
+
+def _minimax_by_orbits(task: dict):
+    """The positive bound of an interchangeable-rows instance, from its orbits (no |D| listing), or None.
+
+    Used when the settings leave the method to ``auto`` or ask for ``minimax``; any instance outside
+    the orbit form (:func:`advbound.functions.specfamily.family_from_spec`) goes the usual way.
+    """
+    import dataclasses
+
+    s = task["settings"]
+    if task["bound"] != "positive" or s["method"] not in ("auto", "minimax") or s["options"] \
+            or str(s["solver"] or "CLARABEL").upper() != "CLARABEL":
+        return None
+    from advbound.functions.specfamily import family_from_spec
+    from advbound.programs.minimax import solve_minimax_rows
+    try:
+        fam = family_from_spec(task["instance"], task["params"])
+    except AdvboundError:
+        return None
+    res = solve_minimax_rows(fam, tol=s["tol"] or 1e-6, max_iters=s["max_iters"])
+    why = (f"{fam.n} interchangeable rows and the positive bound: the minimax program on {len(fam.contents)} "
+           f"input orbits (read from the instance file; the {fam.size} inputs are never listed)")
+    return dataclasses.replace(res, method="minimax", method_reason=why)
 
 
 def _solve_exact(f, s: dict):

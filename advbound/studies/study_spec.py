@@ -56,7 +56,7 @@ STUDY_KEYS = {
     "name": "study name (default: the instance name, else the file stem)",
     "description": "free text",
     "bounds": 'list of "general" (ADV±) and/or "positive" (ADV)',
-    "method": '"auto" (default), "dense", "symmetric", "factored" or "rows"',
+    "method": '"auto" (default), "dense", "symmetric", "factored", "rows" or "minimax"',
     "solver": '"SCS" or "CLARABEL" (default: the one the method picks)',
     "tol": "solver tolerance",
     "max_iters": "solver iteration limit",

@@ -245,16 +245,7 @@ def verify_orbit_certificate(cert, *, dense_limit: int = DENSE_CHECK_LIMIT, rtol
     lower = red["lower"]
     dense_lower = None
     if basis.family.size <= dense_limit:
-        from advbound.evidence.certificate import Certificate
-        from advbound.evidence.verify import verify_certificate
-
-        f, G = expand_gamma(basis, g)
-        rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G,
-                                             metadata={"bound": cert.bound}), bound=cert.bound)
-        dense_lower = rep.lower
-        ok = math.isclose(rep.lower, lower, rel_tol=rtol, abs_tol=1e-12) or rep.lower >= lower
-        checks.append(("dense_agrees", ok, f"expanded Γ ({f.size} inputs) gives {rep.lower:.10g}, "
-                                           f"reduced basis {lower:.10g}"))
+        dense_lower = _dense_check(cert, expand_gamma(basis, g), lower, rtol, "reduced basis", checks)
     upper = None
     if cert.duals is not None:
         from advbound.functions.rowbasis import BASIS_VERSION
@@ -270,6 +261,19 @@ def verify_orbit_certificate(cert, *, dense_limit: int = DENSE_CHECK_LIMIT, rtol
             detail = "a dual on the trivial block alone bounds only the positive program"
         checks.append(("dual_matches", upper is not None and same, detail))
     return _report(cert, checks, lower, upper, red, dense_lower)
+
+
+def _dense_check(cert, expanded, lower: float, rtol: float, how: str, checks: list) -> float:
+    """Check the expanded Γ with the dense float verifier; append ``dense_agrees``; return its ratio."""
+    from advbound.evidence.certificate import Certificate
+    from advbound.evidence.verify import verify_certificate
+
+    f, G = expanded
+    rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G,
+                                         metadata={"bound": cert.bound}), bound=cert.bound)
+    ok = math.isclose(rep.lower, lower, rel_tol=rtol, abs_tol=1e-12) or rep.lower >= lower
+    checks.append(("dense_agrees", ok, f"expanded Γ ({f.size} inputs) gives {rep.lower:.10g}, {how} {lower:.10g}"))
+    return rep.lower
 
 
 def _verify_weighted(cert, dense_limit: int, rtol: float) -> OrbitReport:
@@ -290,16 +294,7 @@ def _verify_weighted(cert, dense_limit: int, rtol: float) -> OrbitReport:
                                                      "exact because Γ >= 0")]
     dense_lower = None
     if fam.size <= dense_limit:
-        from advbound.evidence.certificate import Certificate
-        from advbound.evidence.verify import verify_certificate
-
-        f, G = expanded_gamma(cert)
-        rep = verify_certificate(Certificate(f.alphabet, f.inputs, f.outputs, np.asarray(f.costs), G,
-                                             metadata={"bound": cert.bound}), bound=cert.bound)
-        dense_lower = rep.lower
-        ok = math.isclose(rep.lower, lower, rel_tol=rtol, abs_tol=1e-12) or rep.lower >= lower
-        checks.append(("dense_agrees", ok, f"expanded Γ ({f.size} inputs) gives {rep.lower:.10g}, "
-                                           f"quotient norms {lower:.10g}"))
+        dense_lower = _dense_check(cert, expanded_gamma(cert), lower, rtol, "quotient norms", checks)
     mm = minimax_upper(fam, cert.query_weights)
     upper = mm["upper"]
     detail = (f"max load {mm['load']:.10g} / proved floor {mm['phi']:.10g} of the smallest pair sum over "

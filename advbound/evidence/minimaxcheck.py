@@ -146,19 +146,20 @@ def _potential_floor(C: np.ndarray, sigma: np.ndarray) -> np.ndarray:
     return u.sum(axis=1) + v.sum(axis=1) - 8.0 * n * np.finfo(float).eps * scale
 
 
-def matching_floor(fam, weights) -> dict:
+def matching_floor(fam, weights, floors: bool = True) -> dict:
     """For every pair of contents with different outputs: the assignment and a proved floor of its cost.
 
     Returns ``pairs`` ``(P, 2)`` content indices (smaller output rank first), ``value`` the cost of the
     assignment found, ``floor`` the potential bound (``floor <= `` the least cost of any pair of
     inputs with those contents), and ``assignment`` ``(P, n)`` (row ``r`` of the first content is
-    matched to row ``assignment[k, r]`` of the second, both in sorted-content order).
+    matched to row ``assignment[k, r]`` of the second, both in sorted-content order).  With
+    ``floors=False`` (a solver looking for cuts) ``floor`` is not computed and is empty.
     """
     ranks = output_ranks(fam)
     n = fam.n
     D = _differ(fam)
     per = max(1, _BATCH_ENTRIES // max(1, n * n * fam.row_length))
-    pairs, values, floors, assigns = [], [], [], []
+    pairs, values, bounds, assigns = [], [], [], []
     for i in range(len(fam.contents)):
         js = np.flatnonzero(ranks > ranks[i])
         for start in range(0, js.size, per):
@@ -166,14 +167,16 @@ def matching_floor(fam, weights) -> dict:
             C = pair_cost_matrices(fam, weights, i, chunk, D)
             sigma = _assign(C)
             values.append(np.take_along_axis(C, sigma[:, :, None], axis=2)[:, :, 0].sum(axis=1))
-            floors.append(_potential_floor(C, sigma))
+            if floors:
+                bounds.append(_potential_floor(C, sigma))
             assigns.append(sigma)
             pairs.append(np.column_stack([np.full(chunk.size, i), chunk]))
     if not pairs:
         empty = np.zeros(0)
         return {"pairs": np.zeros((0, 2), dtype=np.int64), "value": empty, "floor": empty,
                 "assignment": np.zeros((0, n), dtype=np.int64)}
-    return {"pairs": np.concatenate(pairs), "value": np.concatenate(values), "floor": np.concatenate(floors),
+    return {"pairs": np.concatenate(pairs), "value": np.concatenate(values),
+            "floor": np.concatenate(bounds) if floors else np.zeros(0),
             "assignment": np.concatenate(assigns)}
 
 

@@ -156,6 +156,60 @@ def _top(W: np.ndarray, sizes: np.ndarray) -> tuple[float, np.ndarray]:
     return float(ev[i]), vec[:, i]
 
 
+class _QuotientSums:
+    """The quotient matrices of an invariant Γ, summed pair orbit by pair orbit.
+
+    ``A[i, j]`` is the sum of Γ over the pairs of contents ``i`` and ``j``; ``W[p]`` the sum of
+    ``|Γ|∘Δ_(n,p)`` over the ``(last letter, content)`` orbits.  :meth:`norms` turns them into the
+    bound described in the module docstring.
+    """
+
+    def __init__(self, fam):
+        self.fam, n = fam, fam.n
+        mult = [Counter(c) for c in fam.contents]
+        self.sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
+        self.orbit_index = {}
+        for r, m in enumerate(mult):
+            for a in sorted(m):
+                self.orbit_index[(a, r)] = len(self.orbit_index)
+        self.osizes = np.empty(len(self.orbit_index))
+        for (a, r), u in self.orbit_index.items():
+            self.osizes[u] = self.sizes[r] * mult[r][a] / n
+        R, O = len(fam.contents), len(self.orbit_index)
+        self.A = np.zeros((R, R))
+        self.W = np.zeros((fam.row_length, O, O))
+        self.differ: dict = {}
+        self.negative = False
+
+    def add(self, i: int, j: int, cells, g: float, N: float) -> None:
+        """Add pair orbit ``cells`` (``((a, b), count)``) of contents ``i``, ``j``, with ``N`` pairs and value ``g``."""
+        fam, n = self.fam, self.fam.n
+        self.negative |= g < 0
+        self.A[i, j] += N * g
+        for (a, b), t in cells:
+            ps = self.differ.get((a, b))
+            if ps is None:
+                ps = self.differ[(a, b)] = [p for p in range(fam.row_length) if fam.differ(p, a, b)]
+            if ps:
+                self.W[ps, self.orbit_index[(a, i)], self.orbit_index[(b, j)]] += abs(g) * N * t / n
+
+    def norms(self) -> dict:
+        """``lower``, ``gamma_lower``, ``position_upper``, ``binding`` and ``exact_norms``."""
+        S, sizes = self.A + self.A.T, self.sizes
+        _, vec = _top(S, sizes)
+        gamma_lower = 0.0
+        for d in (vec / np.sqrt(sizes), np.abs(vec) / np.sqrt(sizes)):   # any vector gives a lower bound
+            den = float(sizes @ (d * d))
+            if den > 0:
+                gamma_lower = max(gamma_lower, abs(float(d @ S @ d)) / den)
+        upper = [(_top(Wp + Wp.T, self.osizes)[0] if Wp.any() else 0.0) for Wp in self.W]
+        scaled = np.asarray(upper) / np.asarray(self.fam.costs, dtype=float)
+        worst = float(scaled.max())
+        return {"lower": gamma_lower / worst if worst > 0 else 0.0, "gamma_lower": gamma_lower,
+                "position_upper": [float(u) for u in upper], "binding": int(np.argmax(scaled)),
+                "exact_norms": not self.negative}
+
+
 def quotient_gamma(fam, func, params=None, *, samples: int = 200, seed: int = 0,
                    name: str | None = None) -> QuotientReport:
     """Evaluate the row-invariant callable ``func(x, y, **params)`` on ``fam`` (see the module docstring).
@@ -165,25 +219,15 @@ def quotient_gamma(fam, func, params=None, *, samples: int = 200, seed: int = 0,
     """
     label = name or getattr(func, "__qualname__", None) or repr(func)
     kw = check_params(func, params, name=name)
-    n, L, R = fam.n, fam.row_length, len(fam.contents)
+    n, R = fam.n, len(fam.contents)
     rng = np.random.default_rng(seed)
     t0 = time.perf_counter()
     mult = [sorted(Counter(c).items()) for c in fam.contents]
-    sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
-    orbit_index = {}
-    for r, m in enumerate(mult):
-        for a, _ in m:
-            orbit_index[(a, r)] = len(orbit_index)
-    osizes = np.empty(len(orbit_index))
-    for (a, r), u in orbit_index.items():
-        osizes[u] = sizes[r] * dict(mult[r])[a] / n
-    differ = {}
-    A = np.zeros((R, R))
-    W = np.zeros((L, len(orbit_index), len(orbit_index)))
+    sums = _QuotientSums(fam)
+    sizes = sums.sizes
     res = _Reservoir(samples, rng)
     K = asym = 0
     total = expected = 0.0
-    negative = False
     fact = [math.factorial(i) for i in range(n + 1)]
     rank = {y: i for i, y in enumerate(fam.labels)}
     for i in range(R):
@@ -200,34 +244,16 @@ def quotient_gamma(fam, func, params=None, *, samples: int = 200, seed: int = 0,
                 N = fact[n] / math.prod(fact[t] for _, t in cells)
                 total += N
                 res.offer((cells, v1))
-                if g == 0.0:
-                    continue
-                negative |= g < 0
-                A[i, j] += N * g
-                for (a, b), t in cells:
-                    ps = differ.get((a, b))
-                    if ps is None:
-                        ps = differ[(a, b)] = [p for p in range(L) if fam.differ(p, a, b)]
-                    if ps:
-                        u, v = orbit_index[(a, i)], orbit_index[(b, j)]
-                        W[ps, u, v] += abs(g) * N * t / n
+                if g != 0.0:
+                    sums.add(i, j, cells, g, N)
     checked = check_row_invariance(fam, func, kw, label, res.items, rng)
     t1 = time.perf_counter()
     ok = math.isclose(total, expected, rel_tol=1e-12)
     checks = (("pair_count", ok, f"the pair orbits hold {total:.17g} pairs; the contents give {expected:.17g}"),)
-    lam, vec = _top(A + A.T, sizes)
-    gamma_lower = 0.0
-    for d in (vec / np.sqrt(sizes), np.abs(vec) / np.sqrt(sizes)):   # any vector gives a lower bound
-        gamma_lower = max(gamma_lower, abs(float(d @ (A + A.T) @ d)) / float(sizes @ (d * d)))
-    upper = []
-    for p in range(L):
-        Wp = W[p] + W[p].T
-        upper.append(_top(Wp, osizes)[0] if Wp.any() else 0.0)
-    scaled = np.asarray(upper) / np.asarray(fam.costs)
-    worst = float(scaled.max())
+    q = sums.norms()
     t2 = time.perf_counter()
-    return QuotientReport(lower=gamma_lower / worst if worst > 0 else 0.0, gamma_lower=gamma_lower,
-                          position_upper=tuple(upper), binding=int(np.argmax(scaled)), exact_norms=not negative,
+    return QuotientReport(lower=q["lower"], gamma_lower=q["gamma_lower"],
+                          position_upper=tuple(q["position_upper"]), binding=q["binding"], exact_norms=q["exact_norms"],
                           inputs=int(fam.size), orbits=R, pair_orbits=K, calls=2 * K + checked,
                           invariance_samples=checked, asymmetric_orbits=int(asym), checks=checks,
                           seconds={"evaluate": t1 - t0, "norms": t2 - t1})
@@ -242,45 +268,14 @@ def support_norms(fam, pair_keys, gamma) -> dict:
     test vector: ``‖Γ‖`` itself when Γ ≥ 0), ``position_upper`` (``‖|Γ|∘Δ_(n,p)‖``, exact for Γ ≥ 0),
     ``binding`` and ``exact_norms``.
     """
-    n, L, R = fam.n, fam.row_length, len(fam.contents)
+    n = fam.n
     index = {c: r for r, c in enumerate(fam.contents)}
-    mult = [Counter(c) for c in fam.contents]
-    sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
-    orbit_index = {}
-    for r, m in enumerate(mult):
-        for a in sorted(m):
-            orbit_index[(a, r)] = len(orbit_index)
-    osizes = np.empty(len(orbit_index))
-    for (a, r), u in orbit_index.items():
-        osizes[u] = sizes[r] * mult[r][a] / n
     fact = [math.factorial(i) for i in range(n + 1)]
-    A = np.zeros((R, R))
-    W = np.zeros((L, len(orbit_index), len(orbit_index)))
-    differ: dict = {}
-    negative = False
+    sums = _QuotientSums(fam)
     for key, g in zip(np.asarray(pair_keys, dtype=np.int64).tolist(), np.asarray(gamma, dtype=float).tolist()):
         if g == 0.0:
             continue
-        negative |= g < 0
         i, j = index[tuple(sorted(a for a, _ in key))], index[tuple(sorted(b for _, b in key))]
         cells = Counter(tuple(p) for p in key)
-        N = fact[n] / math.prod(fact[t] for t in cells.values())
-        A[i, j] += N * g
-        for (a, b), t in cells.items():
-            ps = differ.get((a, b))
-            if ps is None:
-                ps = differ[(a, b)] = [p for p in range(L) if fam.differ(p, a, b)]
-            if ps:
-                W[ps, orbit_index[(a, i)], orbit_index[(b, j)]] += abs(g) * N * t / n
-    lam, vec = _top(A + A.T, sizes)
-    gamma_lower = 0.0
-    for d in (vec / np.sqrt(sizes), np.abs(vec) / np.sqrt(sizes)):   # any vector gives a lower bound
-        den = float(sizes @ (d * d))
-        if den > 0:
-            gamma_lower = max(gamma_lower, abs(float(d @ (A + A.T) @ d)) / den)
-    upper = [(_top(W[p] + W[p].T, osizes)[0] if W[p].any() else 0.0) for p in range(L)]
-    scaled = np.asarray(upper) / np.asarray(fam.costs, dtype=float)
-    worst = float(scaled.max())
-    return {"lower": gamma_lower / worst if worst > 0 else 0.0, "gamma_lower": gamma_lower,
-            "position_upper": [float(u) for u in upper], "binding": int(np.argmax(scaled)),
-            "exact_norms": not negative}
+        sums.add(i, j, list(cells.items()), g, fact[n] / math.prod(fact[t] for t in cells.values()))
+    return sums.norms()

@@ -186,7 +186,7 @@ def solve_minimax(fam, tol: float = 1e-6, max_rounds: int = 60, max_cuts_per_rou
             added += 1
         return added
 
-    first = matching_floor(fam, uniform)
+    first = matching_floor(fam, uniform, floors=False)
     add_cuts(first, np.inf)
     best_w, best_phi = uniform, float(first["value"].min())
     history, status, t, mu, version = [], "inaccurate", math.inf, np.zeros(0), ""
@@ -198,7 +198,7 @@ def solve_minimax(fam, tol: float = 1e-6, max_rounds: int = 60, max_cuts_per_rou
             break
         t, mu = t_new, mu_new
         weights = lay.weights(w)
-        m = matching_floor(fam, weights)
+        m = matching_floor(fam, weights, floors=False)
         phi = float(m["value"].min())
         if phi > best_phi:
             best_w, best_phi = weights, phi

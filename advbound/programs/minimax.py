@@ -255,21 +255,13 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     from advbound import status as _status
     from advbound.evidence.orbitcert import OrbitCertificate
     from advbound.evidence.orbitcheck import DENSE_CHECK_LIMIT, verify_orbit_certificate
-    from advbound.functions.rowfamily import RowFamily, family_of
+    from advbound.programs.rowsym import row_family_for
     from advbound.result import SolveResult, SolverStats
 
     if bound != "positive":
         raise InvalidFunctionError("method 'minimax' solves the positive bound only (bound='positive'); "
                                    "use method 'rows' for ADV±")
-    if options:
-        raise InvalidFunctionError(f"method 'minimax' takes no solver options; got {', '.join(sorted(options))}")
-    if solver is not None and str(solver).upper() != "CLARABEL":
-        raise InvalidFunctionError(f"method 'minimax' runs on CLARABEL only; got solver {solver!r}")
-    fam = f if isinstance(f, RowFamily) else family_of(f)
-    if fam is None:
-        raise InvalidFunctionError("method 'minimax' needs interchangeable rows: f.groups must be equal blocks "
-                                   "with equal costs, the domain closed under permuting them and the output "
-                                   "unchanged by it")
+    fam = row_family_for(f, "minimax", options, solver)
     pt = solve_minimax(fam, tol=tol, max_rounds=60 if max_iters is None else int(max_iters), verbose=verbose)
     stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=pt.rounds,
                         tolerances={"tol": float(tol)}, options={"program": "minimax"})
@@ -289,7 +281,7 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     cert = OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
                             contents=np.array(fam.contents, dtype=np.int64), outputs=tuple(fam.outputs),
                             costs=np.asarray(fam.costs, dtype=float), pair_keys=pt.keys[keep], gamma=gamma[keep],
-                            rho=np.where(rho > 0, rho, 0.0) if np.any(rho > 0) else np.ones_like(rho),
+                            rho=rho if np.any(rho > 0) else np.ones_like(rho),
                             metadata=meta, query_weights=pt.weights)
     limit = DENSE_CHECK_LIMIT if dense_check_limit is None else dense_check_limit
     rep = verify_orbit_certificate(cert, dense_limit=limit)

@@ -266,15 +266,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     from advbound import status as _status
     from advbound.result import SolveResult, SolverStats
 
-    if options:
-        raise InvalidFunctionError(f"method 'rows' takes no solver options; got {', '.join(sorted(options))}")
-    if solver is not None and str(solver).upper() != "CLARABEL":
-        raise InvalidFunctionError(f"method 'rows' runs on CLARABEL only; got solver {solver!r}")
-    fam = f if isinstance(f, RowFamily) else family_of(f)
-    if fam is None:
-        raise InvalidFunctionError("method 'rows' needs interchangeable rows: f.groups must be equal blocks "
-                                   "with equal costs, the domain closed under permuting them and the output "
-                                   "unchanged by it")
+    fam = row_family_for(f, "rows", options, solver)
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
@@ -310,6 +302,20 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     st, msg, upper = _rows_verdict(st, rep.lower, dual, tol)
     return SolveResult(message=f"lower bound {where}; {msg}", status=st, lower=rep.lower, upper=upper,
                        certificate=cert, verification=rep, **base)
+
+
+def row_family_for(f, method: str, options: dict, solver) -> RowFamily:
+    """The row family of ``f`` for a program of interchangeable rows on CLARABEL, or a one-line refusal."""
+    if options:
+        raise InvalidFunctionError(f"method {method!r} takes no solver options; got {', '.join(sorted(options))}")
+    if solver is not None and str(solver).upper() != "CLARABEL":
+        raise InvalidFunctionError(f"method {method!r} runs on CLARABEL only; got solver {solver!r}")
+    fam = f if isinstance(f, RowFamily) else family_of(f)
+    if fam is None:
+        raise InvalidFunctionError(f"method {method!r} needs interchangeable rows: f.groups must be equal blocks "
+                                   "with equal costs, the domain closed under permuting them and the output "
+                                   "unchanged by it")
+    return fam
 
 
 def orbit_certificate(prog: RowProgram, gamma, rho, duals, metadata: dict):

@@ -247,9 +247,11 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     """Solve ADV of ``f`` (interchangeable rows) by the minimax program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows or a
-    :class:`~advbound.functions.rowfamily.RowFamily`.  ``max_iters`` caps the cutting-plane rounds
-    (default 60).  The solution becomes an orbit certificate with Γ on the cut pair orbits and the
-    query weights, and the reported numbers are
+    :class:`~advbound.functions.rowfamily.RowFamily`.  The program is solved in one piece by
+    :func:`advbound.programs.minimax_transport.solve_transport` (each content pair's assignment by its
+    LP dual); only if that returns no point do the cutting planes of :func:`solve_minimax` run, with
+    ``max_iters`` capping their rounds (default 60).  The solution becomes an orbit certificate with
+    Γ on the pair orbits of the multipliers and the query weights, and the reported numbers are
     :func:`advbound.evidence.orbitcheck.verify_orbit_certificate`'s, never the solver's.
     """
     from advbound import status as _status
@@ -262,9 +264,14 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
         raise InvalidFunctionError("method 'minimax' solves the positive bound only (bound='positive'); "
                                    "use method 'rows' for ADV±")
     fam = row_family_for(f, "minimax", options, solver)
-    pt = solve_minimax(fam, tol=tol, max_rounds=60 if max_iters is None else int(max_iters), verbose=verbose)
+    from advbound.programs.minimax_transport import solve_transport
+
+    pt, program = solve_transport(fam, tol=tol, verbose=verbose), "transport"
+    if pt.status == "failed":   # the one-solve program did not return a point: the cutting planes, round by round
+        pt, program = solve_minimax(fam, tol=tol, max_rounds=60 if max_iters is None else int(max_iters),
+                                    verbose=verbose), "cutting planes"
     stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=pt.rounds,
-                        tolerances={"tol": float(tol)}, options={"program": "minimax"})
+                        tolerances={"tol": float(tol)}, options={"program": f"minimax ({program})"})
     base = dict(bound=bound, domain_size=fam.size, solver_stats=stats,
                 objective=1.0 / pt.t if np.isfinite(pt.t) and pt.t > 0 else None)
     if pt.keys.shape[0] == 0 or not np.any(pt.multipliers > 0):
@@ -275,7 +282,7 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     meta = {"description": fam.description, "bound": bound, "method": "minimax",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.status,
                        "iterations": pt.rounds, "time": float(pt.seconds)},
-            "minimax": {"rounds": pt.rounds, "cuts": int(pt.keys.shape[0]), "t": pt.t, "phi": pt.phi,
+            "minimax": {"program": program, "rounds": pt.rounds, "cuts": int(pt.keys.shape[0]), "t": pt.t, "phi": pt.phi,
                         "history": list(pt.history)}}
     alphabet = tuple(sorted(set("".join(fam.letters))))
     cert = OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
@@ -294,7 +301,7 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     st = _status.OPTIMAL if rel <= max(1e-4, 1e2 * tol) else _status.INACCURATE
     where = "and densely on the expanded Γ" if rep.dense_lower is not None else f"(|D| = {fam.size}, not expanded)"
     msg = (f"lower bound from quotient norms of Γ {where}; upper bound from the query weights (minimax witness); "
-           f"relative gap {rel:.2g} after {pt.rounds} rounds and {pt.keys.shape[0]} cuts (cutting planes "
-           f"{pt.status})")
+           f"relative gap {rel:.2g}; {program} program {pt.status}, {pt.keys.shape[0]} pair orbits in Γ"
+           + (f" after {pt.rounds} rounds" if program == "cutting planes" else ""))
     return SolveResult(message=msg, status=st, lower=rep.lower, upper=rep.upper, certificate=cert,
                        verification=rep, **base)

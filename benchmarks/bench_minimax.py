@@ -9,6 +9,10 @@ case it builds the row family once, then times, in the same run, the row-symmetr
 trivial block (``solve_rows(fam, bound="positive")``, the baseline) and the minimax program
 (``solve_minimax_rows(fam)``), both with verification of both bounds, and prints the speed-up as a
 ratio with both verified intervals.  ``--no-baseline`` skips the baseline for large cases.
+``--programs`` also times the two ways of solving the minimax program itself, without
+verification: the cutting planes (``solve_minimax``, the baseline of that line) and the one-solve
+transport program (``solve_transport``, what ``solve_minimax_rows`` runs), with their values
+``1/t`` (the relaxation) and ``1/φ`` (the weights' least pair sum).
 Seconds are this machine's own figures.
 """
 
@@ -23,10 +27,12 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--cases", nargs="+", default=["5:10"], metavar="ROWS:T")
     ap.add_argument("--no-baseline", action="store_true", help="skip the row-symmetric baseline")
+    ap.add_argument("--programs", action="store_true", help="also time cutting planes against the one-solve program")
     a = ap.parse_args(argv)
     warnings.simplefilter("ignore")
     from advbound.functions.rowfamily import position_search_family
-    from advbound.programs.minimax import solve_minimax_rows
+    from advbound.programs.minimax import solve_minimax, solve_minimax_rows
+    from advbound.programs.minimax_transport import solve_transport
     from advbound.programs.rowsym import solve_rows
 
     for case in a.cases:
@@ -44,6 +50,17 @@ def main(argv=None) -> int:
         mm = time.perf_counter() - t0
         ratio = f"  ratio {base / mm:.1f}x" if base else ""
         print(f"  minimax               {mm:9.2f} s  [{m.lower:.8f}, {m.upper:.8f}]  {m.status}{ratio}")
+        if a.programs:
+            t0 = time.perf_counter()
+            c = solve_minimax(fam)
+            tc = time.perf_counter() - t0
+            print(f"  cutting planes        {tc:9.2f} s  1/t {1 / c.t:.8f}  1/phi {1 / c.phi:.8f}  {c.status}, "
+                  f"{c.rounds} rounds, {c.keys.shape[0]} cuts")
+            t0 = time.perf_counter()
+            o = solve_transport(fam)
+            to = time.perf_counter() - t0
+            print(f"  transport (one solve) {to:9.2f} s  1/t {1 / o.t:.8f}  1/phi {1 / o.phi:.8f}  {o.status}  "
+                  f"ratio {tc / to:.1f}x")
     return 0
 
 

@@ -16,9 +16,6 @@ Sources for the values asserted here:
 import itertools
 import json
 import math
-import subprocess
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -32,39 +29,17 @@ from advbound.functions.builders import position_search_composition
 from advbound.functions.rowfamily import position_search_family
 from advbound.programs.choose import choose_method
 from advbound.programs.solve import solve
+from orbit_star import recheck, star_arrays, write
 
 pytest.importorskip("clarabel")
 
-ROOT = Path(__file__).resolve().parents[1]
-RECHECK = ROOT / "tools" / "recheck_certificate.py"
-FORMAT = "advbound-orbit-certificate/1"
 #: OR_3 by hand: contents 000, 001, 011, 111 over the letters "0", "1"; weights (content, letter, position).
 WEIGHTS = np.array([[[1 / 3], [0.0]], [[0.0], [1.0]], [[0.0], [0.5]], [[0.0], [1 / 3]]])
 
 
 def base(**changes):
-    """The OR_3 star with the hand-made query weights, as positive-bound orbit-certificate arrays."""
-    a = {"format": np.array(FORMAT), "alphabet": np.array(["0", "1"]), "letters": np.array(["0", "1"]),
-         "contents": np.array([[0, 0, 0], [0, 0, 1], [0, 1, 1], [1, 1, 1]], dtype=np.int64),
-         "outputs": np.array(["0", "1", "1", "1"]), "costs": np.ones(1),
-         "pair_keys": np.array([[[0, 0], [0, 0], [0, 1]]], dtype=np.int64), "gamma": np.ones(1),
-         "rho": np.array([0.5, 1 / 6, 0.0, 0.0]), "metadata": np.array(json.dumps({"bound": "positive"})),
-         "query_weights": WEIGHTS.copy()}
-    for k, v in changes.items():
-        if v is None:
-            a.pop(k, None)
-        else:
-            a[k] = v
-    return a
-
-
-def write(path, arrays):
-    np.savez(path, **arrays)
-    return path
-
-
-def recheck(path):
-    return subprocess.run([sys.executable, str(RECHECK), str(path)], capture_output=True, text=True, timeout=300)
+    """The OR_3 star (tests/orbit_star.py) with the hand-made query weights, as positive-bound arrays."""
+    return star_arrays("positive", **{"query_weights": WEIGHTS.copy(), **changes})
 
 
 def _changed(c, a, q, v):

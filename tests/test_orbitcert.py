@@ -1,17 +1,11 @@
 """Orbit certificates: the acceptance rule and forged files, in advbound and in the standalone re-checker.
 
-The base file is written by hand with ``np.savez``: OR_3 as three rows of one bit, with the star Γ
-(value 1 between 000 and each input of one 1).  ``ADV±(OR_3) = √3`` and the star reaches it
-("Quantum lower bounds by quantum arguments", 2000, arXiv:quant-ph/0002066); with the test vector
-ρ = 1/2 on 000 and 1/6 on each input of one 1 (the star's top eigenvector, squared) the Rayleigh
-quotient is exactly √3: ``2·3·1·√(1/2·1/6) / (1/2 + 3/6) = √3``; each Γ∘Δ_j is one edge, norm 1.
+The base file is written by hand with ``np.savez``: the OR_3 star of tests/orbit_star.py, whose
+docstring derives its value √3 and names the source.
 """
 
 import json
 import math
-import subprocess
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -21,33 +15,12 @@ from advbound.errors import CertificateError
 from advbound.evidence.orbitcert import load_any_certificate
 from advbound.evidence.orbitcheck import verify_orbit_certificate
 
-ROOT = Path(__file__).resolve().parents[1]
-RECHECK = ROOT / "tools" / "recheck_certificate.py"
-FORMAT = "advbound-orbit-certificate/1"
+from orbit_star import FORMAT, ROOT, recheck, star_arrays, write
 
 
 def base(**changes):
-    """The OR_3 star as orbit-certificate arrays; a change of ``None`` removes the array."""
-    a = {"format": np.array(FORMAT), "alphabet": np.array(["0", "1"]), "letters": np.array(["0", "1"]),
-         "contents": np.array([[0, 0, 0], [0, 0, 1], [0, 1, 1], [1, 1, 1]], dtype=np.int64),
-         "outputs": np.array(["0", "1", "1", "1"]), "costs": np.ones(1),
-         "pair_keys": np.array([[[0, 0], [0, 0], [0, 1]]], dtype=np.int64), "gamma": np.ones(1),
-         "rho": np.array([0.5, 1 / 6, 0.0, 0.0]), "metadata": np.array(json.dumps({"bound": "general"}))}
-    for k, v in changes.items():
-        if v is None:
-            a.pop(k, None)
-        else:
-            a[k] = v
-    return a
-
-
-def write(path, arrays):
-    np.savez(path, **arrays)
-    return path
-
-
-def recheck(path):
-    return subprocess.run([sys.executable, str(RECHECK), str(path)], capture_output=True, text=True, timeout=300)
+    """The OR_3 star as orbit-certificate arrays of the general bound; a change of ``None`` removes the array."""
+    return star_arrays("general", **changes)
 
 
 def test_hand_made_star_verifies_to_sqrt3(tmp_path, capsys):

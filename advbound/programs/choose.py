@@ -64,7 +64,7 @@ def choose_method(f: PartialFunction, bound: str = "general", solver: str | None
     if fam is not None and name in (None, "CLARABEL") and bound == "positive":
         return MethodChoice("minimax", "CLARABEL",
                             f"{fam.n} interchangeable rows and the positive bound: the minimax program on "
-                            f"{len(fam.contents)} input orbits (cutting planes) instead of {fam.size} inputs")
+                            f"{len(fam.contents)} input orbits (second-order cones) instead of {fam.size} inputs")
     if fam is not None and name in (None, "CLARABEL"):
         return MethodChoice("rows", "CLARABEL",
                             f"{fam.n} interchangeable rows: the S_{fam.n}-reduced program on "

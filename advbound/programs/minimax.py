@@ -117,6 +117,14 @@ class _Layout:
         return out
 
 
+def _clarabel_version() -> str:
+    try:
+        import clarabel
+    except ImportError:   # pragma: no cover - CLARABEL is a core dependency
+        return ""
+    return str(getattr(clarabel, "__version__", ""))
+
+
 def _key(fam, i: int, j: int, sigma) -> tuple:
     ci, cj = fam.contents[i], fam.contents[j]
     return tuple(sorted((ci[r], cj[s]) for r, s in enumerate(sigma)))
@@ -147,7 +155,7 @@ def _relaxation(lay: _Layout, cuts: list, norm: sp.csr_matrix, tol: float, verbo
             prob.solve(solver="CLARABEL", verbose=verbose, **opts)
     except cp.error.SolverError as err:
         return f"solver error: {str(err)[:80]}", None, None, None, ""
-    version = getattr(prob.solver_stats, "solver_name", "CLARABEL")
+    version = _clarabel_version()
     if w.value is None or t.value is None:
         return str(prob.status), None, None, None, version
     mu = np.maximum(np.asarray(cuts_c.dual_value, dtype=float).ravel(), 0.0)
@@ -270,7 +278,8 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     if pt.status == "failed":   # the one-solve program did not return a point: the cutting planes, round by round
         pt, program = solve_minimax(fam, tol=tol, max_rounds=60 if max_iters is None else int(max_iters),
                                     verbose=verbose), "cutting planes"
-    stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=pt.rounds,
+    iters = pt.history[0].get("iterations", pt.rounds) if program == "transport" and pt.history else pt.rounds
+    stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=iters,
                         tolerances={"tol": float(tol)}, options={"program": f"minimax ({program})"})
     base = dict(bound=bound, domain_size=fam.size, solver_stats=stats,
                 objective=1.0 / pt.t if np.isfinite(pt.t) and pt.t > 0 else None)

@@ -168,7 +168,7 @@ def solve_transport(fam, tol: float = 1e-6, verbose: bool = False):
     """
     import cvxpy as cp
 
-    from advbound.programs.minimax import MinimaxPoint
+    from advbound.programs.minimax import MinimaxPoint, _clarabel_version
 
     t0 = time.perf_counter()
     if len(fam.labels) < 2:
@@ -190,15 +190,16 @@ def solve_transport(fam, tol: float = 1e-6, verbose: bool = False):
     # a hundredth of tol, as the cutting planes use: with a tenth the checked gap of 8 rows at T = 16 grows
     # from 7e-7 to 9e-6 and the solve is no faster
     opts = dict(tol_gap_abs=tol * 1e-2, tol_gap_rel=tol * 1e-2, tol_feas=tol * 1e-2) if tol else {}
-    status, version = "failed", "CLARABEL"
+    status, version, iterations = "failed", _clarabel_version(), 0
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
             prob.solve(solver="CLARABEL", verbose=verbose, **opts)
         status = str(prob.status)
+        iterations = int(getattr(prob.solver_stats, "num_iters", 0) or 0)
     except cp.error.SolverError as err:
         status = f"solver error: {str(err)[:80]}"
-    hist = {"round": 1, "status": status, "pairs": P, "letter_pairs": E, "roots": S}
+    hist = {"round": 1, "status": status, "iterations": iterations, "pairs": P, "letter_pairs": E, "roots": S}
     if w.value is None or t.value is None or edge_c.dual_value is None:
         empty = np.zeros((0, fam.n, 2), dtype=np.int64)
         return MinimaxPoint(weights=lay.weights(np.full(lay.n_w, 0.0)), keys=empty, multipliers=np.zeros(0),

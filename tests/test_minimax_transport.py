@@ -82,3 +82,22 @@ def test_without_a_point_the_cutting_planes_take_over(monkeypatch):
     r = solve_minimax_rows(position_search_family("or", 4, 8, max_ones=1))
     assert r.status == "optimal" and "cutting planes program" in r.message
     assert r.certificate.metadata["minimax"]["program"] == "cutting planes"
+
+
+def test_cost_weighted_rows_agree_with_the_dense_positive_program():
+    """Unequal query costs per position (the cost-weighted bound ADV_c): the one solve against the dense program."""
+    import dataclasses
+
+    from advbound.functions.rowbasis import expand_gamma, row_basis
+    from advbound.programs.solve import solve
+
+    fam = position_search_family("or", 3, 6, None)
+    fam = dataclasses.replace(fam, costs=tuple(1.0 + 0.5 * q for q in range(fam.row_length)))
+    basis = row_basis(fam)
+    f, _ = expand_gamma(basis, np.zeros(basis.n_weights))
+    assert f.costs == tuple(fam.costs) * fam.n               # the expanded inputs are the rows side by side
+    dense = solve(f, bound="positive", method="dense", solver="CLARABEL")
+    one = solve_minimax_rows(fam)
+    assert one.status == "optimal", one.message
+    assert one.lower == pytest.approx(dense.lower, rel=1e-5)
+    assert one.lower <= dense.upper * (1 + 1e-6) and dense.lower <= one.upper * (1 + 1e-6)

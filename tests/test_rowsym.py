@@ -212,3 +212,26 @@ def test_positive_bound_needs_only_the_trivial_block(n, T):
     dense = solve(position_search_composition("or", n, T - n + 1, T, max_ones=1), bound="positive",
                   method="dense", solver="CLARABEL")
     assert dense.lower <= value * (1 + 1e-6) and value <= dense.upper * (1 + 1e-6)
+
+
+def test_cost_weighted_rows_agree_with_the_dense_program_and_the_dense_check():
+    """Unequal costs per position (ADV±_c): the reduced program, its dense cross-check, and the dense program.
+
+    The expanded function carries the family's costs (before, it dropped them, and the dense
+    cross-check of every cost-weighted orbit certificate compared with an unweighted ratio).
+    """
+    import dataclasses
+
+    from advbound.functions.rowbasis import row_basis
+
+    fam = position_search_family("or", 3, 6, None)
+    fam = dataclasses.replace(fam, costs=tuple(0.5 + 0.5 * q for q in range(fam.row_length)))
+    basis = row_basis(fam)
+    f, _ = expand_gamma(basis, np.zeros(basis.n_weights))
+    assert f.costs == tuple(fam.costs) * fam.n
+    dense = solve(f, method="dense", solver="CLARABEL")
+    red = solve_rows(fam)
+    assert red.status == "optimal", red.message
+    assert red.verification.dense_lower is not None
+    assert red.lower == pytest.approx(dense.lower, rel=1e-5)
+    assert red.lower <= dense.upper * (1 + 1e-6) and dense.lower <= red.upper * (1 + 1e-6)

@@ -194,11 +194,15 @@ def row_basis(fam: RowFamily) -> RowBasis:
 
 
 def expand_gamma(basis, gamma: np.ndarray) -> tuple[PartialFunction, np.ndarray]:
-    """The full function and the dense Γ of an invariant orbit Γ (for |D| small enough to hold |D|²)."""
+    """The full function and the dense Γ of an invariant orbit Γ (for |D| small enough to hold |D|²).
+
+    The inputs are the rows side by side, so the query costs are the family's per-position costs
+    repeated for each row.
+    """
     fam = basis.family
     pairs = list(fam.inputs())
     alphabet = "".join(sorted(set("".join(fam.letters))))
-    f = PartialFunction.from_pairs(alphabet, pairs, description=fam.description)
+    f = PartialFunction.from_pairs(alphabet, pairs, costs=tuple(fam.costs) * fam.n, description=fam.description)
     index = {x: i for i, x in enumerate(f.inputs)}
     L = fam.row_length
     letter = {s: i for i, s in enumerate(fam.letters)}

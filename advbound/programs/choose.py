@@ -32,11 +32,16 @@ __all__ = ["MethodChoice", "choose_method"]
 
 @dataclasses.dataclass(frozen=True)
 class MethodChoice:
-    """The program ``method="auto"`` picked: ``method``, ``solver`` (None: the method's own) and ``reason``."""
+    """The program ``method="auto"`` picked: ``method``, ``solver`` (None: the method's own) and ``reason``.
+
+    ``family`` is the :class:`~advbound.functions.rowfamily.RowFamily` found on the way for the
+    programs of interchangeable rows (so the solve does not look for it again), else None.
+    """
 
     method: str
     solver: str | None
     reason: str
+    family: object = dataclasses.field(default=None, repr=False, compare=False)
 
 
 def choose_method(f: PartialFunction, bound: str = "general", solver: str | None = None,
@@ -64,11 +69,12 @@ def choose_method(f: PartialFunction, bound: str = "general", solver: str | None
     if fam is not None and name in (None, "CLARABEL") and bound == "positive":
         return MethodChoice("minimax", "CLARABEL",
                             f"{fam.n} interchangeable rows and the positive bound: the minimax program on "
-                            f"{len(fam.contents)} input orbits (second-order cones) instead of {fam.size} inputs")
+                            f"{len(fam.contents)} input orbits (second-order cones) instead of {fam.size} inputs",
+                            family=fam)
     if fam is not None and name in (None, "CLARABEL"):
         return MethodChoice("rows", "CLARABEL",
                             f"{fam.n} interchangeable rows: the S_{fam.n}-reduced program on "
-                            f"{len(fam.contents)} input orbits instead of {fam.size} inputs")
+                            f"{len(fam.contents)} input orbits instead of {fam.size} inputs", family=fam)
     skipped = (f"rows are interchangeable, but the row-symmetric program runs on CLARABEL only and "
                f"{name} was asked for; " if fam is not None else "")
     if budget is None:

@@ -121,12 +121,13 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
     if method not in METHODS:
         raise InvalidFunctionError(f"method {method!r} is unknown; use one of {', '.join(METHODS)}")
     check_solvable(f, bound)
-    reason = f"method {method!r} was asked for"
+    reason, target = f"method {method!r} was asked for", f
     if method == "auto":
         from advbound.programs.choose import choose_method
 
         choice = choose_method(f, bound, solver)
         method, solver, reason = choice.method, choice.solver, choice.reason
+        target = f if choice.family is None else choice.family   # the row family, found once
         log.info("method auto: %s (%s)", method, reason)
     if tol is None:
         tol = {"factored": 1e-4, "rows": 1e-8, "minimax": 1e-6}.get(method, 1e-7)
@@ -138,7 +139,7 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
         chosen = solver if method in ("rows", "minimax") else (solver or "SCS")
         extra = {k: v for k, v in dict(solver=chosen, max_iters=max_iters, with_dual=with_dual).items()
                  if k in params}
-        res = func(f, bound=bound, tol=tol, verbose=verbose, **extra, **options)
+        res = func(target, bound=bound, tol=tol, verbose=verbose, **extra, **options)
     else:
         res = _solve_dense(f, bound, solver or "SCS", tol, max_iters, verbose, with_dual, dual_source, repair_tol,
                            allow_large, options)

@@ -1,4 +1,4 @@
-"""The hand-made OR_3 star as orbit-certificate arrays, shared by the tests of orbit certificates.
+"""The hand-made OR_3 star as orbit-certificate arrays, and the edit rule of forged files, shared by tests.
 
 OR_3 as three rows of one bit, with the star Γ (value 1 between 000 and each input of one 1).
 ``ADV±(OR_3) = ADV(OR_3) = √3`` and the star reaches it ("Quantum lower bounds by quantum
@@ -26,12 +26,17 @@ def star_arrays(bound: str = "general", **changes) -> dict:
          "outputs": np.array(["0", "1", "1", "1"]), "costs": np.ones(1),
          "pair_keys": np.array([[[0, 0], [0, 0], [0, 1]]], dtype=np.int64), "gamma": np.ones(1),
          "rho": np.array([0.5, 1 / 6, 0.0, 0.0]), "metadata": np.array(json.dumps({"bound": bound}))}
+    return apply_changes(a, changes)
+
+
+def apply_changes(arrays: dict, changes: dict) -> dict:
+    """``arrays`` with each change applied in place: a value replaces the array, ``None`` removes it."""
     for k, v in changes.items():
         if v is None:
-            a.pop(k, None)
+            arrays.pop(k, None)
         else:
-            a[k] = v
-    return a
+            arrays[k] = v
+    return arrays
 
 
 def write(path, arrays):

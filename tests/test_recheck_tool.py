@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from orbit_star import apply_changes
 
 ROOT = Path(__file__).resolve().parents[1]
 RECHECK = ROOT / "tools" / "recheck_certificate.py"
@@ -29,12 +30,7 @@ def or2_arrays(**changes):
     a = {"format": np.array(FORMAT), "alphabet": np.array(["0", "1"]), "inputs": np.array(["00", "01", "10", "11"]),
          "outputs": np.array(["0", "1", "1", "1"]), "costs": np.ones(2), "gamma": OR2_GAMMA.copy(),
          "metadata": np.array(json.dumps({"bound": "general"}))}
-    for k, v in changes.items():
-        if v is None:
-            a.pop(k, None)
-        else:
-            a[k] = v
-    return a
+    return apply_changes(a, changes)
 
 
 def coo_arrays(rows, cols, vals, **changes):

@@ -46,10 +46,12 @@ __all__ = ["transport_layout", "transport_estimate", "solve_transport", "decompo
 def transport_layout(fam) -> dict:
     """The program's index arrays, without solving (also what :func:`solve_transport` sizes from).
 
-    Returns ``pairs`` ``(P, 2)`` content pairs; ``pot`` the potential variables as ``(pair, side,
-    letter)`` rows; ``edges`` ``(E, 4)`` letter pairs ``(pair, potential of a, potential of b, a, b)``
-    collapsed to ``(pair, pu, pv)`` with ``ab`` beside; ``roots`` ``(S, 2)`` the ``w`` indices of each
-    square root; ``edge_roots`` a sparse ``(E, S)`` matrix of the ``1/c_q`` coefficients.
+    Returns a dict: ``layout`` (the weight indices, :class:`advbound.programs.minimax._Layout`);
+    ``pairs`` ``(P, 2)`` the content pairs with different outputs; ``pot_pair`` and ``pot_mult`` the
+    content pair and the letter multiplicity of each potential ``u_a`` / ``v_b``; ``edge_pair``,
+    ``edge_u``, ``edge_v``, ``edge_a``, ``edge_b`` one entry per letter pair (its content pair, its two
+    potentials, its two letters); ``roots`` ``(S, 2)`` the two weight indices under each square root;
+    ``edge_roots`` the sparse ``(E, S)`` matrix of ``1/c_q`` coefficients of ``C_ab``.
     """
     from advbound.programs.minimax import _Layout
 
@@ -75,7 +77,6 @@ def transport_layout(fam) -> dict:
     e_pair, e_u, e_v, e_a, e_b = map(cat, (e_pair, e_u, e_v, e_a, e_b))
     pairs_arr = np.array(pairs, dtype=np.int64).reshape(-1, 2)
     # square roots: one per (edge, differing position), deduplicated by their two w indices
-    r_edge, r_u, r_v, r_coef = [], [], [], []
     ci, cj = pairs_arr[e_pair, 0], pairs_arr[e_pair, 1]
     letters = np.array([list(s) for s in fam.letters])
     D = letters[e_a] != letters[e_b]                                   # (E, L)

@@ -38,7 +38,8 @@ import numpy as np
 
 from advbound.evidence.gammainput import GammaError, call_gamma, check_params
 
-__all__ = ["QuotientReport", "quotient_gamma", "support_norms", "pair_tables", "check_row_invariance"]
+__all__ = ["QuotientReport", "quotient_gamma", "support_norms", "pair_tables", "check_row_invariance",
+           "last_letter_orbits"]
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -156,6 +157,25 @@ def _top(W: np.ndarray, sizes: np.ndarray) -> tuple[float, np.ndarray]:
     return float(ev[i]), vec[:, i]
 
 
+def last_letter_orbits(fam) -> tuple[np.ndarray, dict, np.ndarray]:
+    """The orbits of the stabiliser of the last row: ``(sizes, index, osizes)``.
+
+    ``sizes[r]`` the inputs of content ``r``; ``index[(a, r)]`` the number of the orbit of inputs of
+    content ``r`` whose last row holds letter ``a``, and ``osizes`` its size ``sizes[r]·m_r(a)/n``.
+    """
+    n = fam.n
+    mult = [Counter(c) for c in fam.contents]
+    sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
+    index: dict = {}
+    for r, m in enumerate(mult):
+        for a in sorted(m):
+            index[(a, r)] = len(index)
+    osizes = np.empty(len(index))
+    for (a, r), u in index.items():
+        osizes[u] = sizes[r] * mult[r][a] / n
+    return sizes, index, osizes
+
+
 class _QuotientSums:
     """The quotient matrices of an invariant Γ, summed pair orbit by pair orbit.
 
@@ -165,16 +185,8 @@ class _QuotientSums:
     """
 
     def __init__(self, fam):
-        self.fam, n = fam, fam.n
-        mult = [Counter(c) for c in fam.contents]
-        self.sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
-        self.orbit_index = {}
-        for r, m in enumerate(mult):
-            for a in sorted(m):
-                self.orbit_index[(a, r)] = len(self.orbit_index)
-        self.osizes = np.empty(len(self.orbit_index))
-        for (a, r), u in self.orbit_index.items():
-            self.osizes[u] = self.sizes[r] * mult[r][a] / n
+        self.fam = fam
+        self.sizes, self.orbit_index, self.osizes = last_letter_orbits(fam)
         R, O = len(fam.contents), len(self.orbit_index)
         self.A = np.zeros((R, R))
         self.W = np.zeros((fam.row_length, O, O))

@@ -33,6 +33,8 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.optimize import linprog
 
+from advbound.evidence.orbitquotient import last_letter_orbits
+
 __all__ = ["refit_gamma"]
 
 
@@ -49,15 +51,7 @@ def refit_gamma(fam, keys: np.ndarray, weights: np.ndarray, rho: np.ndarray, flo
     if K == 0:
         return None
     index = {c: r for r, c in enumerate(fam.contents)}
-    sizes = np.array([fam.orbit_size(c) for c in fam.contents], dtype=float)
-    mult = [Counter(c) for c in fam.contents]
-    orbit = {}
-    for r, m in enumerate(mult):
-        for a in sorted(m):
-            orbit[(a, r)] = len(orbit)
-    osize = np.empty(len(orbit))
-    for (a, r), u in orbit.items():
-        osize[u] = sizes[r] * mult[r][a] / n
+    sizes, orbit, osize = last_letter_orbits(fam)
     d = np.sqrt(np.maximum(np.asarray(rho, dtype=float), 0.0))
     norm = float(sizes @ (d * d))
     if norm <= 0:

@@ -309,9 +309,9 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
     keep = gamma > 0
     meta = {"description": fam.description, "bound": bound, "method": "minimax",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.status,
-                       "iterations": pt.rounds, "time": float(pt.seconds)},
-            "minimax": {"program": program, "gamma": source, "rounds": pt.rounds, "cuts": int(pt.keys.shape[0]), "t": pt.t, "phi": pt.phi,
-                        "history": list(pt.history)}}
+                       "iterations": iters, "time": float(pt.seconds)},
+            "minimax": {"program": program, "gamma": source, "rounds": pt.rounds, "cuts": int(pt.keys.shape[0]),
+                        "t": pt.t, "phi": pt.phi, "history": list(pt.history)}}
     alphabet = tuple(sorted(set("".join(fam.letters))))
     cert = OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
                             contents=np.array(fam.contents, dtype=np.int64), outputs=tuple(fam.outputs),

@@ -249,21 +249,22 @@ def gamma_from_multipliers(fam, keys: np.ndarray, multipliers: np.ndarray) -> tu
     return np.nan_to_num(gamma), m
 
 
-def _best_gamma(fam, pt: MinimaxPoint, gamma: np.ndarray, rho: np.ndarray, tol: float) -> tuple[np.ndarray, str]:
-    """Γ from the multipliers, or the Schur-test refit of :mod:`advbound.programs.minimax_refit` when
-    the multipliers' Γ falls short of the weights' value ``1/φ`` by more than ``10·tol`` and the refit
-    does better (both judged by the quotient norms the checker uses)."""
-    from advbound.evidence.orbitquotient import support_norms
+def _refit_if_short(fam, pt: MinimaxPoint, cert, rep, rho: np.ndarray, tol: float, verify):
+    """Re-fit Γ by :mod:`advbound.programs.minimax_refit` when the checked lower bound of the
+    multipliers' Γ falls short of the checked upper bound by more than ``10·tol``; keep whichever
+    certificate the checker proves more for.  Returns ``(cert, rep)``."""
     from advbound.programs.minimax_refit import refit_gamma
 
-    target = 1.0 / pt.phi if pt.phi > 0 else math.inf
-    first = support_norms(fam, pt.keys, gamma)["lower"]
-    if not np.isfinite(target) or target - first <= 10 * tol * target:
-        return gamma, "multipliers"
+    if not rep.passed or rep.upper - rep.lower <= 10 * tol * rep.upper:
+        return cert, rep
     again = refit_gamma(fam, pt.keys, pt.weights, rho)
-    if again is not None and support_norms(fam, pt.keys, again)["lower"] > first:
-        return again, "Schur-test refit"
-    return gamma, "multipliers"
+    if again is None:
+        return cert, rep
+    keep = again > 0
+    meta = dict(cert.metadata, minimax=dict(cert.metadata["minimax"], gamma="Schur-test refit"))
+    other = dataclasses.replace(cert, pair_keys=pt.keys[keep], gamma=again[keep], metadata=meta)
+    rep2 = verify(other)
+    return (other, rep2) if rep2.passed and rep2.lower > rep.lower else (cert, rep)
 
 
 def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters: int | None = None,
@@ -305,12 +306,11 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
         return SolveResult(message=f"the minimax program returned no multipliers ({pt.status})",
                            status=_status.FAILED, **base)
     gamma, rho = gamma_from_multipliers(fam, pt.keys, pt.multipliers)
-    gamma, source = _best_gamma(fam, pt, gamma, rho, tol)
     keep = gamma > 0
     meta = {"description": fam.description, "bound": bound, "method": "minimax",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.status,
                        "iterations": iters, "time": float(pt.seconds)},
-            "minimax": {"program": program, "gamma": source, "rounds": pt.rounds, "cuts": int(pt.keys.shape[0]),
+            "minimax": {"program": program, "gamma": "multipliers", "rounds": pt.rounds, "cuts": int(pt.keys.shape[0]),
                         "t": pt.t, "phi": pt.phi, "history": list(pt.history)}}
     alphabet = tuple(sorted(set("".join(fam.letters))))
     cert = OrbitCertificate(alphabet=alphabet, letters=tuple(fam.letters),
@@ -319,8 +319,11 @@ def solve_minimax_rows(f, bound: str = "positive", tol: float = 1e-6, max_iters:
                             rho=rho if np.any(rho > 0) else np.ones_like(rho),
                             metadata=meta, query_weights=pt.weights)
     limit = DENSE_CHECK_LIMIT if dense_check_limit is None else dense_check_limit
-    rep = verify_orbit_certificate(cert, dense_limit=limit)
-    cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))
+    def verify(c):
+        return verify_orbit_certificate(c, dense_limit=limit)
+
+    cert, rep = _refit_if_short(fam, pt, cert, verify(cert), rho, tol, verify)
+    cert = dataclasses.replace(cert, metadata=dict(cert.metadata, claimed_lower=rep.lower, claimed_upper=rep.upper))
     if not rep.passed:
         return SolveResult(message=f"check(s) {', '.join(rep.failed_checks())} failed on the orbit certificate",
                            status=_status.UNVERIFIED, certificate=cert, verification=rep, **base)

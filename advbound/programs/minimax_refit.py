@@ -21,9 +21,10 @@ the values of Γ on the pair orbits and never lists an input.  HiGHS solves it b
 method (with crossover): on OR of 12 rows at T = 22 (26,529 pair orbits) that took 8.3 s against
 47 s for the dual simplex, and the checked lower bound of its Γ was 6.766703 against 6.766733.
 The refit keeps the multipliers' mass per input (δ) and the weights, and replaces only how the mass
-is spread over the pair orbits; with a wrong δ it does no better than the multipliers.  The LP optimum is a lower bound on
-ADV by itself; the solve still reports only what :mod:`advbound.evidence.orbitquotient` computes
-for the Γ it returns (exact Perron roots), so an error here can only weaken the bound, not falsify it.
+is spread over the pair orbits; with a wrong δ it does no better than the multipliers.  The LP
+optimum is a lower bound on ADV by itself; the solve still reports only what
+:mod:`advbound.evidence.orbitquotient` computes for the Γ it returns (exact Perron roots), so an
+error here can only weaken the bound, not falsify it.
 """
 
 from __future__ import annotations

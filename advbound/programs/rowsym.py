@@ -225,7 +225,7 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
     b[0] = 1.0
     st = clarabel.DefaultSettings()
     st.verbose = bool(verbose)
-    if K < SMALL_PROGRAM_WEIGHTS:       # measured: a second thread costs more than it saves on small programs
+    if K < SMALL_PROGRAM_WEIGHTS:       # see the constant for the measurements
         st.max_threads = 1
         st.iterative_refinement_reltol = st.iterative_refinement_abstol = 1e-10   # 1e-13 by default
     st.tol_gap_abs = st.tol_gap_rel = st.tol_feas = float(tol)

@@ -131,6 +131,20 @@ class RowProgram:
 SMALL_PROGRAM_WEIGHTS = 2000
 
 
+#: The other ways :func:`solve_rows` tries when CLARABEL stops short of "solved" on the reduced
+#: program (each changes only the solver's path, see :func:`solve_reduced`).  The best checked
+#: lower bound (a Γ) and the best checked upper bound (a set of dual matrices) may come from
+#: different attempts: each is valid on its own.  Where CLARABEL ends on these programs depends on
+#: the variable order, the threads and the clique merging; on OR of 7 position-search rows at
+#: T = 12 (at most one row of value 1) the default and the first retry ended with "NumericalError"
+#: and the parent-child merge gave checked bounds [4.56878, 4.64099] (docs/symmetry.md).
+RETRIES = ({"orbit_totals": True, "threads": 1}, {"merge": "parent_child"},
+           {"orbit_totals": True, "merge": "parent_child"})
+
+#: The retries run only when the first solve is not "solved" and its checked relative gap exceeds this.
+RETRY_GAP = 1e-4
+
+
 def formulate_rows(fam: RowFamily, bound: str = "general") -> RowProgram:
     """Build the reduced program of ``fam`` (see the module docstring)."""
     if bound not in ("general", "positive"):
@@ -196,8 +210,16 @@ def _unpack_triangle(z: np.ndarray, s: int) -> np.ndarray:
 
 
 def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = None,
-                  verbose: bool = False) -> ReducedPoint:
-    """Solve the reduced program with CLARABEL (primal and the dual matrices of its PSD cones)."""
+                  verbose: bool = False, orbit_totals: bool = False, merge: str | None = None,
+                  threads: int | None = None) -> ReducedPoint:
+    """Solve the reduced program with CLARABEL (primal and the dual matrices of its PSD cones).
+
+    ``orbit_totals`` lets the solver work on ``n_k·w_k`` and ``m_r·ρ_r`` (the total weight of an
+    orbit, the total density of a content) instead of ``w_k`` and ``ρ_r``; ``merge`` sets CLARABEL's
+    clique merge method of the chordal decomposition and ``threads`` its number of threads (default:
+    one below :data:`SMALL_PROGRAM_WEIGHTS` weights, else CLARABEL's choice).  These change only the
+    path the solver takes, never the program; :data:`RETRIES` says when they help.
+    """
     try:
         import clarabel
     except ImportError:
@@ -220,7 +242,9 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
         scale = np.where(lo_r == lo_c, 1.0, np.sqrt(2.0))
         rows.append(-sp.diags(scale) @ _lmi_rows(prog, blk, p, side, nv)[idx])
         sizes.append(s)
-    A = sp.vstack(rows, format="csc")
+    scale_x = (np.concatenate([1.0 / prog.pair_counts, 1.0 / prog.input_counts]) if orbit_totals
+               else np.ones(nv))
+    A = sp.csc_matrix(sp.vstack(rows, format="csc") @ sp.diags(scale_x))
     b = np.zeros(A.shape[0])
     b[0] = 1.0
     st = clarabel.DefaultSettings()
@@ -231,11 +255,15 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
     st.tol_gap_abs = st.tol_gap_rel = st.tol_feas = float(tol)
     if max_iters is not None:
         st.max_iter = int(max_iters)
+    if merge is not None:
+        st.chordal_decomposition_merge_method = str(merge)
+    if threads is not None:
+        st.max_threads = int(threads)
     cones = [clarabel.ZeroConeT(1), clarabel.NonnegativeConeT(nonneg.size)]
     cones += [clarabel.PSDTriangleConeT(s) for s in sizes]
     t0 = time.perf_counter()
     try:
-        sol = clarabel.DefaultSolver(sp.csc_matrix((nv, nv)), c, A, b, cones, st).solve()
+        sol = clarabel.DefaultSolver(sp.csc_matrix((nv, nv)), c * scale_x, A, b, cones, st).solve()
     except Exception as err:
         raise SolverError(f"CLARABEL failed on the row-symmetric program: {err}") from None
     z = np.asarray(sol.z, dtype=float)
@@ -245,7 +273,7 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
         duals.append(_unpack_triangle(z[at:at + m], s) if z.size >= at + m else np.zeros((s, s)))
         at += m
     raw = str(sol.status)
-    return ReducedPoint(np.asarray(sol.x), duals, CLARABEL_STATUS_MAP.get(raw, "solver_error"), raw,
+    return ReducedPoint(scale_x * np.asarray(sol.x), duals, CLARABEL_STATUS_MAP.get(raw, "solver_error"), raw,
                         int(sol.iterations), time.perf_counter() - t0, str(clarabel.__version__))
 
 
@@ -264,7 +292,7 @@ def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.nda
 
 def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | None = None,
                verbose: bool = False, dense_check_limit: int = DENSE_CHECK_LIMIT, solver: str | None = None,
-               **options):
+               retry: bool = True, **options):
     """Solve ADV± (or ADV) of ``f`` on the row-symmetric program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows (see :func:`family_of`) or a
@@ -273,7 +301,11 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     dual matrices), and the reported numbers are those of
     :func:`advbound.evidence.orbitcheck.verify_orbit_certificate`: ``lower`` the reduced-basis ratio
     (checked against the expanded Γ on the full domain up to ``dense_check_limit`` inputs) and
-    ``upper`` the weak-duality bound of the dual matrices, never the solver's objective.
+    ``upper`` the weak-duality bound of the dual matrices, never the solver's objective.  When the
+    first solve is not "optimal", its checked relative gap exceeds :data:`RETRY_GAP` and ``retry`` is
+    true, the settings of :data:`RETRIES` are tried as well, and the certificate takes the Γ with the
+    best checked lower bound and the dual matrices with the best checked upper bound
+    (``metadata["attempts"]`` lists every attempt).
     """
     from advbound import status as _status
     from advbound.result import SolveResult, SolverStats
@@ -282,26 +314,34 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
-    pt = solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose)
+    attempts = [({}, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose))]
+    pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
+    if retry and attempts[0][1].status != "optimal" and _gap(record[0]) > RETRY_GAP:
+        attempts += [(kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw))
+                     for kw in RETRIES]
+        pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
     st = _status.from_cvxpy(pt.status)
-    stats = SolverStats(name="CLARABEL", version=pt.version, time=pt.seconds, iterations=pt.iterations,
-                        tolerances={"tol": float(tol)}, options={"program": "rows"})
+    stats = SolverStats(name="CLARABEL", version=pt.version, time=sum(a.seconds for _, a in attempts),
+                        iterations=sum(a.iterations for _, a in attempts),
+                        tolerances={"tol": float(tol)}, options={"program": "rows", "attempts": len(attempts)})
     K = prog.n_weights
-    finite = pt.x.size and np.all(np.isfinite(pt.x))
+    finite = gamma is not None
     objective = float(2.0 * prog.pair_counts @ pt.x[:K]) if finite else None
     base = dict(bound=bound, domain_size=fam.size, solver_stats=stats, objective=objective)
     if st not in _status.SUCCESS or not finite:
         st = st if st not in _status.SUCCESS else _status.FAILED
-        return SolveResult(message=f"CLARABEL returned {pt.raw_status!r} on the row-symmetric program",
-                           status=st, **base)
-    gamma, rho = gamma_on_orbits(prog, pt.x)
+        tried = "; ".join(f"{_describe(kw)}: {a.raw_status!r}" for kw, a in attempts)
+        return SolveResult(message=f"CLARABEL found no point of the row-symmetric program ({tried})", status=st,
+                           **base)
     meta = {"description": fam.description, "bound": bound, "method": "rows",
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.raw_status,
                        "iterations": pt.iterations, "time": float(pt.seconds)},
             "reduced": dict(solved.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
+    if len(attempts) > 1:
+        meta["attempts"] = record
     if solved is not prog:
         meta["cones"] = "trivial"
-    cert = orbit_certificate(prog, gamma, rho, pt.duals, meta)
+    cert = orbit_certificate(prog, gamma, rho, duals, meta)
     rep = verify_orbit_certificate(cert, dense_limit=dense_check_limit, basis=prog.basis)
     cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))
     if not rep.passed:
@@ -314,6 +354,48 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     st, msg, upper = _rows_verdict(st, rep.lower, dual, tol)
     return SolveResult(message=f"lower bound {where}; {msg}", status=st, lower=rep.lower, upper=upper,
                        certificate=cert, verification=rep, **base)
+
+
+def _gap(entry: dict) -> float:
+    """The relative gap of one attempt's checked bounds (infinite without both)."""
+    lo, up = entry.get("lower"), entry.get("upper")
+    if lo is None or up is None or not np.isfinite(up) or up <= 0:
+        return float("inf")
+    return (up - lo) / up
+
+
+def _describe(kw: dict) -> str:
+    return ", ".join(f"{k}={v}" for k, v in kw.items()) or "default"
+
+
+def _best_pieces(prog: RowProgram, solved: RowProgram, attempts: list):
+    """``(point, gamma, rho, duals, record)``: the Γ of the best checked lower bound over the attempts
+    and the dual matrices of the best checked upper bound (float64 screening; the certificate built
+    from them is verified in full afterwards).  ``point`` is the attempt of the chosen Γ, or the first
+    attempt when none has a finite point (then ``gamma`` is None).
+    """
+    from advbound import status as _status
+    from advbound.evidence.orbitcheck import orbit_lower_bound, orbit_upper_bound
+
+    best_lo = best_up = None
+    record = []
+    for kw, pt in attempts:
+        entry = {"settings": _describe(kw), "status": pt.raw_status, "time": float(pt.seconds)}
+        if _status.from_cvxpy(pt.status) in _status.SUCCESS and pt.x.size and np.all(np.isfinite(pt.x)):
+            gamma, rho = gamma_on_orbits(prog, pt.x)
+            lo = orbit_lower_bound(prog.basis, gamma, rho)["lower"]
+            up = orbit_upper_bound(solved.basis, prog.bound, pt.duals)["upper"]
+            entry.update(lower=float(lo), upper=None if up is None else float(up))
+            if best_lo is None or lo > best_lo[0]:
+                best_lo = (lo, pt, gamma, rho)
+            if up is not None and np.isfinite(up) and (best_up is None or up < best_up[0]):
+                best_up = (up, pt.duals)
+        record.append(entry)
+    if best_lo is None:
+        return attempts[0][1], None, None, None, record
+    _, pt, gamma, rho = best_lo
+    duals = best_up[1] if best_up is not None else pt.duals
+    return pt, gamma, rho, duals, record
 
 
 def row_family_for(f, method: str, options: dict, solver) -> RowFamily:

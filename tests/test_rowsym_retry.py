@@ -1,0 +1,99 @@
+"""The row-symmetric program's other solver paths, and how solve_rows combines its attempts.
+
+Reference values: ADV± of OR of 3 position-search rows with k1 + k2 + k3 = 7 is 2.858167 (the dense
+program, README's scaling table); the dense program of advbound.programs.solve is the outside check
+for the other instances.
+"""
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+import advbound.programs.rowsym as rowsym
+from advbound.evidence.orbitcert import load_orbit_certificate, save_orbit_certificate
+from advbound.evidence.orbitcheck import verify_orbit_certificate
+from advbound.functions.builders import position_search_composition
+from advbound.functions.rowfamily import position_search_family
+from advbound.programs.solve import solve
+
+OR3_T7 = 2.858167
+
+
+@pytest.mark.parametrize("kw", [{"orbit_totals": True}, {"merge": "parent_child"}])
+def test_other_solver_paths_reach_the_dense_value(kw):
+    f = position_search_composition("or", 3, None, 6)
+    dense = solve(f, method="dense", solver="CLARABEL")
+    prog = rowsym.formulate_rows(position_search_family("or", 3, 6, None))
+    pt = rowsym.solve_reduced(prog, **kw)
+    value = 2.0 * prog.pair_counts @ pt.x[:prog.n_weights]
+    assert value == pytest.approx(dense.lower, rel=1e-5)
+
+
+def _scripted(monkeypatch, edits):
+    """Make solve_reduced's n-th call return the real point changed by ``edits[n]`` (the last one after)."""
+    real = rowsym.solve_reduced
+    calls = []
+
+    def fake(prog, **kw):
+        pt = real(prog, **kw)
+        calls.append(kw)
+        return edits[min(len(calls), len(edits)) - 1](pt)
+
+    monkeypatch.setattr(rowsym, "solve_reduced", fake)
+    return calls
+
+
+def _failed(pt):
+    return dataclasses.replace(pt, x=np.full_like(pt.x, np.nan), status="solver_error", raw_status="NumericalError")
+
+
+def test_a_failed_first_solve_is_retried(monkeypatch, tmp_path):
+    calls = _scripted(monkeypatch, [_failed, lambda pt: pt])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
+    assert len(calls) == 1 + len(rowsym.RETRIES)
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+    attempts = r.certificate.metadata["attempts"]
+    assert [a["status"] for a in attempts][0] == "NumericalError" and "lower" not in attempts[0]
+    path = tmp_path / "or3.npz"
+    save_orbit_certificate(r.certificate, path)
+    rep = verify_orbit_certificate(load_orbit_certificate(path))
+    assert rep.passed and rep.lower == pytest.approx(r.lower, rel=1e-9)
+
+
+def test_lower_and_upper_may_come_from_different_attempts(monkeypatch):
+    rng = np.random.default_rng(1)
+
+    def spoil_gamma(pt):             # a valid but poor Γ, good duals
+        x = pt.x.copy()
+        x[:-1] *= 1.0 + 0.2 * rng.random(x.size - 1)
+        return dataclasses.replace(pt, x=x, status="optimal_inaccurate", raw_status="AlmostSolved")
+
+    def spoil_duals(pt):             # a good Γ, duals far from optimal (still PSD, so still a bound)
+        duals = [Z + np.eye(len(Z)) for Z in pt.duals]
+        return dataclasses.replace(pt, duals=duals, status="optimal_inaccurate", raw_status="AlmostSolved")
+
+    _scripted(monkeypatch, [spoil_gamma, spoil_duals, _failed])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
+    lo = [a.get("lower") for a in r.certificate.metadata["attempts"]]
+    up = [a.get("upper") for a in r.certificate.metadata["attempts"]]
+    assert lo[0] < OR3_T7 - 1e-3 and up[1] > OR3_T7 + 1e-3       # each attempt alone is poor on one side
+    assert r.verification.passed
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+
+
+def test_without_retry_a_failed_solve_is_reported(monkeypatch):
+    calls = _scripted(monkeypatch, [_failed])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7), retry=False)
+    assert len(calls) == 1 and r.status == "failed" and r.lower is None
+    assert "NumericalError" in r.message and "\n" not in r.message
+
+
+def test_no_retry_when_the_first_point_is_already_tight(monkeypatch):
+    def almost(pt):                  # the real point, labelled as CLARABEL's "almost solved"
+        return dataclasses.replace(pt, status="optimal_inaccurate", raw_status="AlmostSolved")
+
+    calls = _scripted(monkeypatch, [almost])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
+    assert len(calls) == 1 and "attempts" not in r.certificate.metadata
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)

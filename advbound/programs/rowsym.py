@@ -292,7 +292,7 @@ def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.nda
 
 def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | None = None,
                verbose: bool = False, dense_check_limit: int = DENSE_CHECK_LIMIT, solver: str | None = None,
-               retry: bool = True, **options):
+               retry: bool = True, refine: bool = True, **options):
     """Solve ADV± (or ADV) of ``f`` on the row-symmetric program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows (see :func:`family_of`) or a
@@ -305,7 +305,10 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     first solve is not "optimal", its checked relative gap exceeds :data:`RETRY_GAP` and ``retry`` is
     true, the settings of :data:`RETRIES` are tried as well, and the certificate takes the Γ with the
     best checked lower bound and the dual matrices with the best checked upper bound
-    (``metadata["attempts"]`` lists every attempt).
+    (``metadata["attempts"]`` lists every attempt).  If the gap between those still exceeds
+    :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
+    :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
+    is better (``metadata["refined"]``).
     """
     from advbound import status as _status
     from advbound.result import SolveResult, SolverStats
@@ -320,6 +323,13 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
         attempts += [(kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw))
                      for kw in RETRIES]
         pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
+    refined = None
+    if refine and bound == "general" and gamma is not None and _pieces_gap(record) > RETRY_GAP:
+        from advbound.programs.rowsym_refine import refine_lower
+
+        refined = refine_lower(prog, pt.x)
+        if refined.lower > refined.lower_before:
+            gamma, rho = gamma_on_orbits(prog, refined.x)
     st = _status.from_cvxpy(pt.status)
     stats = SolverStats(name="CLARABEL", version=pt.version, time=sum(a.seconds for _, a in attempts),
                         iterations=sum(a.iterations for _, a in attempts),
@@ -339,6 +349,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
             "reduced": dict(solved.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
     if len(attempts) > 1:
         meta["attempts"] = record
+    if refined is not None:
+        meta["refined"] = {"lower_before": refined.lower_before, "lower": refined.lower, "rounds": refined.rounds,
+                           "cuts": refined.cuts, "time": refined.seconds}
     if solved is not prog:
         meta["cones"] = "trivial"
     cert = orbit_certificate(prog, gamma, rho, duals, meta)
@@ -362,6 +375,13 @@ def _gap(entry: dict) -> float:
     if lo is None or up is None or not np.isfinite(up) or up <= 0:
         return float("inf")
     return (up - lo) / up
+
+
+def _pieces_gap(record: list) -> float:
+    """The relative gap between the best checked lower and the best checked upper bound of the attempts."""
+    lows = [e["lower"] for e in record if e.get("lower") is not None]
+    ups = [e["upper"] for e in record if e.get("upper") is not None and np.isfinite(e["upper"])]
+    return _gap({"lower": max(lows, default=None), "upper": min(ups, default=None)})
 
 
 def _describe(kw: dict) -> str:

@@ -70,8 +70,8 @@ from advbound.evidence.orbitcheck import (DENSE_CHECK_LIMIT, cone_keys, sides, t
 from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
-__all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
-           "DENSE_CHECK_LIMIT"]
+__all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "lmi_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
+           "RETRIES", "RETRY_GAP", "DENSE_CHECK_LIMIT"]
 
 log = logging.getLogger("advbound")
 
@@ -154,7 +154,7 @@ def formulate_rows(fam: RowFamily, bound: str = "general") -> RowProgram:
     return prog
 
 
-def _lmi_rows(prog: RowProgram, blk, p: int, side: int, nv: int) -> sp.csr_matrix:
+def lmi_rows(prog: RowProgram, blk, p: int, side: int, nv: int) -> sp.csr_matrix:
     """Sparse ``(s², nv)`` coefficients of ``c_p·G(ρ) − side·B_p(w)``, entry ``(u, v)`` at row ``u·s + v``."""
     fam, K = prog.family, prog.n_weights
     s = len(blk.rows)
@@ -240,7 +240,7 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
         lo_r, lo_c = np.tril_indices(s)            # Clarabel packs the upper triangle by columns
         idx = lo_c * s + lo_r
         scale = np.where(lo_r == lo_c, 1.0, np.sqrt(2.0))
-        rows.append(-sp.diags(scale) @ _lmi_rows(prog, blk, p, side, nv)[idx])
+        rows.append(-sp.diags(scale) @ lmi_rows(prog, blk, p, side, nv)[idx])
         sizes.append(s)
     scale_x = (np.concatenate([1.0 / prog.pair_counts, 1.0 / prog.input_counts]) if orbit_totals
                else np.ones(nv))

@@ -16,7 +16,7 @@ linear programs (Kelley's cutting planes for an LMI, inside a shrinking trust re
   returned.
 
 Nothing here is trusted: any point gives a valid Γ, and the caller checks it again in the certificate.
-At 7 rows, T = 12 (at most one row of value 1) 60 rounds took 1.1 minutes and moved the checked lower
+At 7 rows, T = 12 (at most one row of value 1) 60 rounds took 92 s and moved the checked lower
 bound from 4.615595 to 4.623339, against the dual's 4.623980 (relative gap from 1.8·10⁻³ to 1.4·10⁻⁴).
 """
 
@@ -29,6 +29,9 @@ import numpy as np
 import scipy.linalg as sla
 import scipy.optimize as so
 import scipy.sparse as sp
+
+from advbound.evidence.orbitcheck import orbit_lower_bound
+from advbound.programs.rowsym import gamma_on_orbits, lmi_rows
 
 __all__ = ["RefineResult", "refine_lower"]
 
@@ -49,21 +52,16 @@ class RefineResult:
 
 
 def _checked_lower(prog, x: np.ndarray) -> float:
-    from advbound.evidence.orbitcheck import orbit_lower_bound
-    from advbound.programs.rowsym import gamma_on_orbits
-
     gamma, rho = gamma_on_orbits(prog, x)
     return float(orbit_lower_bound(prog.basis, gamma, rho)["lower"])
 
 
 def _cone_maps(prog, nv: int) -> list:
     """Per cone: the map of ``x`` to the whole LMI and to its ``c_p·G(ρ)`` part (both ``(s², nv)``)."""
-    from advbound.programs.rowsym import _lmi_rows
-
     K = prog.n_weights
     out = []
     for p, side, bi in prog.cone_keys():
-        L = _lmi_rows(prog, prog.blocks[bi], p, side, nv).tocsc()
+        L = lmi_rows(prog, prog.blocks[bi], p, side, nv).tocsc()
         keep = np.zeros(nv)
         keep[K:] = 1.0
         out.append((L.tocsr(), (L @ sp.diags(keep)).tocsr(), len(prog.blocks[bi].rows)))

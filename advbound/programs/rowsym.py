@@ -318,13 +318,15 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
     attempts = [({}, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose))]
-    pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
-    if retry and attempts[0][1].status != "optimal" and _gap(record[0]) > RETRY_GAP:
-        attempts += [(kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw))
-                     for kw in RETRIES]
+    pt, duals, refined, record = attempts[0][1], attempts[0][1].duals, None, []
+    gamma, rho = gamma_on_orbits(prog, pt.x) if pt.x.size and np.all(np.isfinite(pt.x)) else (None, None)
+    if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor
         pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
-    refined = None
-    if refine and bound == "general" and gamma is not None and _pieces_gap(record) > RETRY_GAP:
+        if retry and _gap(record[0]) > RETRY_GAP:
+            attempts += [(kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw))
+                         for kw in RETRIES]
+            pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
+    if refine and bound == "general" and gamma is not None and record and _pieces_gap(record) > RETRY_GAP:
         from advbound.programs.rowsym_refine import refine_lower
 
         refined = refine_lower(prog, pt.x)

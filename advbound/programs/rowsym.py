@@ -321,11 +321,13 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     pt, duals, refined, record = attempts[0][1], attempts[0][1].duals, None, []
     gamma, rho = gamma_on_orbits(prog, pt.x) if pt.x.size and np.all(np.isfinite(pt.x)) else (None, None)
     if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor
-        pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
-        if retry and _gap(record[0]) > RETRY_GAP:
-            attempts += [(kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw))
-                         for kw in RETRIES]
-            pt, gamma, rho, duals, record = _best_pieces(prog, solved, attempts)
+        screened = [_screen(prog, solved, *attempts[0])]
+        if retry and _gap(screened[0][0]) > RETRY_GAP:
+            for kw in RETRIES:
+                attempts.append((kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw)))
+                screened.append(_screen(prog, solved, *attempts[-1]))
+        pt, gamma, rho, duals = _best_pieces(screened, attempts[0][1])
+        record = [entry for entry, *_ in screened]
     if refine and bound == "general" and gamma is not None and record and _pieces_gap(record) > RETRY_GAP:
         from advbound.programs.rowsym_refine import refine_lower
 
@@ -390,34 +392,36 @@ def _describe(kw: dict) -> str:
     return ", ".join(f"{k}={v}" for k, v in kw.items()) or "default"
 
 
-def _best_pieces(prog: RowProgram, solved: RowProgram, attempts: list):
-    """``(point, gamma, rho, duals, record)``: the Γ of the best checked lower bound over the attempts
-    and the dual matrices of the best checked upper bound (float64 screening; the certificate built
-    from them is verified in full afterwards).  ``point`` is the attempt of the chosen Γ, or the first
-    attempt when none has a finite point (then ``gamma`` is None).
+def _screen(prog: RowProgram, solved: RowProgram, kw: dict, pt: ReducedPoint) -> tuple:
+    """``(entry, gamma, rho, point)`` of one attempt: ``entry`` its settings, status and checked bounds
+    (float64 screening; the certificate built from the chosen pieces is verified in full afterwards).
+    ``gamma`` is None when the attempt has no finite point.
     """
     from advbound import status as _status
     from advbound.evidence.orbitcheck import orbit_lower_bound, orbit_upper_bound
 
-    best_lo = best_up = None
-    record = []
-    for kw, pt in attempts:
-        entry = {"settings": _describe(kw), "status": pt.raw_status, "time": float(pt.seconds)}
-        if _status.from_cvxpy(pt.status) in _status.SUCCESS and pt.x.size and np.all(np.isfinite(pt.x)):
-            gamma, rho = gamma_on_orbits(prog, pt.x)
-            lo = orbit_lower_bound(prog.basis, gamma, rho)["lower"]
-            up = orbit_upper_bound(solved.basis, prog.bound, pt.duals)["upper"]
-            entry.update(lower=float(lo), upper=None if up is None else float(up))
-            if best_lo is None or lo > best_lo[0]:
-                best_lo = (lo, pt, gamma, rho)
-            if up is not None and np.isfinite(up) and (best_up is None or up < best_up[0]):
-                best_up = (up, pt.duals)
-        record.append(entry)
-    if best_lo is None:
-        return attempts[0][1], None, None, None, record
-    _, pt, gamma, rho = best_lo
-    duals = best_up[1] if best_up is not None else pt.duals
-    return pt, gamma, rho, duals, record
+    entry = {"settings": _describe(kw), "status": pt.raw_status, "time": float(pt.seconds)}
+    if _status.from_cvxpy(pt.status) not in _status.SUCCESS or not pt.x.size or not np.all(np.isfinite(pt.x)):
+        return entry, None, None, pt
+    gamma, rho = gamma_on_orbits(prog, pt.x)
+    up = orbit_upper_bound(solved.basis, prog.bound, pt.duals)["upper"]
+    entry.update(lower=float(orbit_lower_bound(prog.basis, gamma, rho)["lower"]),
+                 upper=None if up is None or not np.isfinite(up) else float(up))
+    return entry, gamma, rho, pt
+
+
+def _best_pieces(screened: list, first: ReducedPoint):
+    """``(point, gamma, rho, duals)``: the Γ of the best checked lower bound over the screened attempts
+    and the dual matrices of the best checked upper bound.  ``point`` is the attempt of the chosen Γ,
+    or ``first`` when no attempt has a finite point (then ``gamma`` is None).
+    """
+    with_point = [s for s in screened if s[1] is not None]
+    if not with_point:
+        return first, None, None, None
+    entry, gamma, rho, pt = max(with_point, key=lambda s: s[0]["lower"])
+    with_upper = [s for s in with_point if s[0]["upper"] is not None]
+    duals = min(with_upper, key=lambda s: s[0]["upper"])[3].duals if with_upper else pt.duals
+    return pt, gamma, rho, duals
 
 
 def row_family_for(f, method: str, options: dict, solver) -> RowFamily:

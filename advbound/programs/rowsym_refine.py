@@ -58,13 +58,11 @@ def _checked_lower(prog, x: np.ndarray) -> float:
 
 def _cone_maps(prog, nv: int) -> list:
     """Per cone: the map of ``x`` to the whole LMI and to its ``c_p·G(ρ)`` part (both ``(s², nv)``)."""
-    K = prog.n_weights
+    densities = sp.diags((np.arange(nv) >= prog.n_weights).astype(float))     # keeps the ρ columns only
     out = []
     for p, side, bi in prog.cone_keys():
-        L = lmi_rows(prog, prog.blocks[bi], p, side, nv).tocsc()
-        keep = np.zeros(nv)
-        keep[K:] = 1.0
-        out.append((L.tocsr(), (L @ sp.diags(keep)).tocsr(), len(prog.blocks[bi].rows)))
+        L = lmi_rows(prog, prog.blocks[bi], p, side, nv)
+        out.append((L, (L @ densities).tocsr(), len(prog.blocks[bi].rows)))
     return out
 
 

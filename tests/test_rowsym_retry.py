@@ -12,7 +12,8 @@ import pytest
 
 import advbound.programs.rowsym as rowsym
 from advbound.evidence.orbitcert import load_orbit_certificate, save_orbit_certificate
-from advbound.evidence.orbitcheck import verify_orbit_certificate
+from advbound.errors import SolverError
+from advbound.evidence.orbitcheck import orbit_upper_bound, verify_orbit_certificate
 from advbound.functions.builders import position_search_composition
 from advbound.functions.rowfamily import position_search_family
 from advbound.programs.solve import solve
@@ -20,14 +21,57 @@ from advbound.programs.solve import solve
 OR3_T7 = 2.858167
 
 
-@pytest.mark.parametrize("kw", [{"orbit_totals": True}, {"merge": "parent_child"}])
+@pytest.mark.parametrize("kw", [{"orbit_totals": True}, {"merge": "parent_child"}, {"reference": "disturbed"}])
 def test_other_solver_paths_reach_the_dense_value(kw):
     f = position_search_composition("or", 3, None, 6)
     dense = solve(f, method="dense", solver="CLARABEL")
     prog = rowsym.formulate_rows(position_search_family("or", 3, 6, None))
+    if kw.get("reference") == "disturbed":     # rescaled to a point off the optimum by up to 10x per density
+        x = rowsym.solve_reduced(prog).x.copy()
+        x[prog.n_weights:] *= 10.0 ** np.random.default_rng(2).uniform(-1, 1, x.size - prog.n_weights)
+        kw = {"reference": x}
     pt = rowsym.solve_reduced(prog, **kw)
     value = 2.0 * prog.pair_counts @ pt.x[:prog.n_weights]
     assert value == pytest.approx(dense.lower, rel=1e-5)
+    # the dual matrices (mapped back from a rescaled cone where there is one) bound the same optimum
+    upper = orbit_upper_bound(prog.basis, "general", pt.duals)["upper"]
+    assert dense.lower - 1e-6 <= upper <= dense.lower * (1 + 1e-5)
+
+
+def test_a_poor_first_point_is_rescaled_and_nothing_more_is_tried(monkeypatch):
+    def poor(pt):                    # a valid but poor Γ and duals far from optimal, "almost solved"
+        x = pt.x.copy()
+        x[:-1] *= 1.0 + 0.2 * np.random.default_rng(4).random(x.size - 1)
+        duals = [Z + np.eye(len(Z)) for Z in pt.duals]
+        return dataclasses.replace(pt, x=x, duals=duals, status="optimal_inaccurate", raw_status="AlmostSolved")
+
+    calls = _scripted(monkeypatch, [poor, lambda pt: pt])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
+    assert len(calls) == 2 and "reference" in calls[1]
+    attempts = r.certificate.metadata["attempts"]
+    assert [a["settings"] for a in attempts] == ["default", "rescaled_from=0"]
+    assert attempts[0]["lower"] < OR3_T7 - 1e-3
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+    assert r.verification.passed
+
+
+def test_rescaling_needs_a_point_with_densities():
+    prog = rowsym.formulate_rows(position_search_family("or", 3, 5, None))
+    with pytest.raises(SolverError, match="without positive densities"):
+        rowsym.solve_reduced(prog, reference=np.zeros(prog.n_weights + len(prog.family.contents)))
+
+
+def test_rescaling_is_a_congruence_by_the_reference_densities():
+    prog = rowsym.formulate_rows(position_search_family("or", 3, 5, None))
+    x = rowsym.solve_reduced(prog).x
+    scale_x, cones = rowsym.rescaling(prog, x)
+    K = prog.n_weights
+    rho = x[K:]
+    assert np.allclose(scale_x[K:], np.maximum(rho, rowsym.RESCALE_FLOOR * rho.max()))
+    for (p, _side, bi), d in zip(prog.cone_keys(), cones):
+        blk = prog.blocks[bi]
+        G = prog.family.costs[p] * blk.gram * np.array([scale_x[K + row[1]] for row in blk.rows])[:, None]
+        assert np.allclose(np.diag(d[:, None] * G * d[None, :]), 1.0)     # c_p·G(ρ̂) has unit diagonal
 
 
 def _scripted(monkeypatch, edits):
@@ -51,7 +95,8 @@ def _failed(pt):
 def test_a_failed_first_solve_is_retried(monkeypatch, tmp_path):
     calls = _scripted(monkeypatch, [_failed, lambda pt: pt])
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
-    assert len(calls) == 1 + len(rowsym.RETRIES)
+    # no point to rescale to, so the first setting of RETRIES; its point is tight, so nothing more
+    assert len(calls) == 2 and "reference" not in calls[1]
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
     attempts = r.certificate.metadata["attempts"]
     assert [a["status"] for a in attempts][0] == "NumericalError" and "lower" not in attempts[0]

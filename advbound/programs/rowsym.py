@@ -71,7 +71,8 @@ from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
 __all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "lmi_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
-           "RETRIES", "RETRY_GAP", "DENSE_CHECK_LIMIT"]
+           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "rescaling",
+           "DENSE_CHECK_LIMIT"]
 
 log = logging.getLogger("advbound")
 
@@ -144,6 +145,10 @@ RETRIES = ({"orbit_totals": True, "threads": 1}, {"merge": "parent_child"},
 #: The retries run only when the first solve is not "solved" and its checked relative gap exceeds this.
 RETRY_GAP = 1e-4
 
+#: At most this many re-solves rescaled to the best point so far (:func:`rescaling`) come before
+#: :data:`RETRIES`; the retries stop once the best checked pieces are within :data:`RETRY_GAP`.
+RESCALES = 2
+
 
 def formulate_rows(fam: RowFamily, bound: str = "general") -> RowProgram:
     """Build the reduced program of ``fam`` (see the module docstring)."""
@@ -211,14 +216,15 @@ def _unpack_triangle(z: np.ndarray, s: int) -> np.ndarray:
 
 def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = None,
                   verbose: bool = False, orbit_totals: bool = False, merge: str | None = None,
-                  threads: int | None = None) -> ReducedPoint:
+                  threads: int | None = None, reference: np.ndarray | None = None) -> ReducedPoint:
     """Solve the reduced program with CLARABEL (primal and the dual matrices of its PSD cones).
 
     ``orbit_totals`` lets the solver work on ``n_k·w_k`` and ``m_r·ρ_r`` (the total weight of an
     orbit, the total density of a content) instead of ``w_k`` and ``ρ_r``; ``merge`` sets CLARABEL's
     clique merge method of the chordal decomposition and ``threads`` its number of threads (default:
-    one below :data:`SMALL_PROGRAM_WEIGHTS` weights, else CLARABEL's choice).  These change only the
-    path the solver takes, never the program; :data:`RETRIES` says when they help.
+    one below :data:`SMALL_PROGRAM_WEIGHTS` weights, else CLARABEL's choice).  ``reference``, a point
+    ``(w, ρ)`` of an earlier solve, rescales the program to it (:func:`rescaling`).  These change only
+    the path the solver takes, never the program; :data:`RETRIES` says when they help.
     """
     try:
         import clarabel
@@ -234,16 +240,19 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
     nonneg = np.arange(K, nv) if prog.bound == "general" else np.arange(nv)
     rows.append(sp.csr_matrix((-np.ones(nonneg.size), (np.arange(nonneg.size), nonneg)), shape=(nonneg.size, nv)))
     sizes = []
-    for p, side, bi in prog.cone_keys():
+    scale_x, cone_scales = rescaling(prog, reference) if reference is not None else (np.ones(nv), None)
+    for i, (p, side, bi) in enumerate(prog.cone_keys()):
         blk = prog.blocks[bi]
         s = len(blk.rows)
         lo_r, lo_c = np.tril_indices(s)            # Clarabel packs the upper triangle by columns
         idx = lo_c * s + lo_r
         scale = np.where(lo_r == lo_c, 1.0, np.sqrt(2.0))
+        if cone_scales is not None:
+            scale = scale * cone_scales[i][lo_r] * cone_scales[i][lo_c]
         rows.append(-sp.diags(scale) @ lmi_rows(prog, blk, p, side, nv)[idx])
         sizes.append(s)
-    scale_x = (np.concatenate([1.0 / prog.pair_counts, 1.0 / prog.input_counts]) if orbit_totals
-               else np.ones(nv))
+    if orbit_totals:
+        scale_x = scale_x / np.concatenate([prog.pair_counts, prog.input_counts])
     A = sp.csc_matrix(sp.vstack(rows, format="csc") @ sp.diags(scale_x))
     b = np.zeros(A.shape[0])
     b[0] = 1.0
@@ -268,13 +277,48 @@ def solve_reduced(prog: RowProgram, tol: float = 1e-8, max_iters: int | None = N
         raise SolverError(f"CLARABEL failed on the row-symmetric program: {err}") from None
     z = np.asarray(sol.z, dtype=float)
     duals, at = [], 1 + nonneg.size
-    for s in sizes:
+    for i, s in enumerate(sizes):
         m = s * (s + 1) // 2
-        duals.append(_unpack_triangle(z[at:at + m], s) if z.size >= at + m else np.zeros((s, s)))
+        Z = _unpack_triangle(z[at:at + m], s) if z.size >= at + m else np.zeros((s, s))
+        if cone_scales is not None:                # the cone holds D·S·D, so ⟨Z', D·S·D⟩ = ⟨D·Z'·D, S⟩
+            Z = cone_scales[i][:, None] * Z * cone_scales[i][None, :]
+        duals.append(Z)
         at += m
     raw = str(sol.status)
     return ReducedPoint(scale_x * np.asarray(sol.x), duals, CLARABEL_STATUS_MAP.get(raw, "solver_error"), raw,
                         int(sol.iterations), time.perf_counter() - t0, str(clarabel.__version__))
+
+
+#: Densities below this fraction of the largest are raised to it before :func:`rescaling` uses them.
+RESCALE_FLOOR = 1e-3
+
+
+def rescaling(prog: RowProgram, reference: np.ndarray) -> tuple[np.ndarray, list]:
+    """Scales that make the reduced program look like its own solution ``reference = (w, ρ)`` of order one.
+
+    Returns ``(scale_x, cone_scales)``: the solver works on ``y = x / scale_x`` with ``ρ_r = ρ̂_r y_r``
+    and ``w_k = √(ρ̂_x ρ̂_z) y_k`` (so ``y_k`` is of the size of Γ), and the cone of ``(p, s, λ)`` holds
+    ``D·(c_p·G_λ(ρ) − s·B_{λ,p}(w))·D`` with ``D = diag(c_p·G_λ(ρ̂))^(−1/2)``, a congruence by a positive
+    diagonal matrix, which keeps the cone's sparsity and its feasible set.  ``ρ̂`` is the reference's
+    density with entries below :data:`RESCALE_FLOOR` times the largest raised to that level.  Without it
+    the solver's absolute feasibility tolerance (10⁻⁸) is large against the blocks' rows of inputs with
+    density 10⁻⁷, and the checked ratio loses what the solver claims; at 7 rows, T = 12 (at most one
+    row of value 1) a re-solve rescaled to an "almost solved" point of checked gap 4.6·10⁻² ended
+    "solved" at 2.7·10⁻⁶ (docs/symmetry.md).
+    """
+    K = prog.n_weights
+    rho = np.maximum(np.asarray(reference, dtype=float)[K:], 0.0)
+    if not np.all(np.isfinite(rho)) or rho.max() <= 0:
+        raise SolverError("cannot rescale the row-symmetric program to a point without positive densities")
+    rho = np.maximum(rho, RESCALE_FLOOR * rho.max())
+    cx, cz = prog.basis.end_contents()
+    scale_x = np.concatenate([np.sqrt(rho[cx] * rho[cz]), rho])
+    cone_scales = []
+    for p, _side, bi in prog.cone_keys():
+        blk = prog.blocks[bi]
+        diag = np.array([prog.family.costs[p] * blk.gram[u, u] * rho[blk.rows[u][1]] for u in range(len(blk.rows))])
+        cone_scales.append(1.0 / np.sqrt(np.where(diag > 0, diag, 1.0)))
+    return scale_x, cone_scales
 
 
 def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -303,9 +347,10 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     (checked against the expanded Γ on the full domain up to ``dense_check_limit`` inputs) and
     ``upper`` the weak-duality bound of the dual matrices, never the solver's objective.  When the
     first solve is not "optimal", its checked relative gap exceeds :data:`RETRY_GAP` and ``retry`` is
-    true, the settings of :data:`RETRIES` are tried as well, and the certificate takes the Γ with the
-    best checked lower bound and the dual matrices with the best checked upper bound
-    (``metadata["attempts"]`` lists every attempt).  If the gap between those still exceeds
+    true, the program is solved again rescaled to its best point so far (:func:`rescaling`, at most
+    :data:`RESCALES` times) and then with the settings of :data:`RETRIES`, until the best pieces are
+    within :data:`RETRY_GAP`; the certificate takes the Γ with the best checked lower bound and the
+    dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).  If the gap between those still exceeds
     :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).
@@ -323,8 +368,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor
         screened = [_screen(prog, solved, *attempts[0])]
         if retry and _gap(screened[0][0]) > RETRY_GAP:
-            for kw in RETRIES:
-                attempts.append((kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **kw)))
+            for kw in _retries(screened):
+                attempts.append((kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
+                                                   **_solver_settings(kw, attempts))))
                 screened.append(_screen(prog, solved, *attempts[-1]))
         pt, gamma, rho, duals = _best_pieces(screened, attempts[0][1])
         record = [entry for entry, *_ in screened]
@@ -371,6 +417,33 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     st, msg, upper = _rows_verdict(st, rep.lower, dual, tol)
     return SolveResult(message=f"lower bound {where}; {msg}", status=st, lower=rep.lower, upper=upper,
                        certificate=cert, verification=rep, **base)
+
+
+def _retries(screened: list):
+    """The settings of the retries, one at a time, for as long as the best pieces exceed :data:`RETRY_GAP`.
+
+    ``screened`` grows as the caller goes.  Whenever the attempt with the best checked lower bound has
+    not been a reference yet, the next retry is a re-solve rescaled to it (setting ``rescaled_from``,
+    its index; at most :data:`RESCALES` in all); otherwise the next setting of :data:`RETRIES`.
+    """
+    used, queue = set(), list(RETRIES)
+    while _pieces_gap([entry for entry, *_ in screened]) > RETRY_GAP:
+        points = [i for i, (_entry, gamma, *_rest) in enumerate(screened) if gamma is not None]
+        best = max(points, key=lambda i: screened[i][0]["lower"], default=None)
+        if best is not None and best not in used and len(used) < RESCALES:
+            used.add(best)
+            yield {"rescaled_from": best}
+        elif queue:
+            yield queue.pop(0)
+        else:
+            return
+
+
+def _solver_settings(kw: dict, attempts: list) -> dict:
+    """The keyword arguments of :func:`solve_reduced` for the retry ``kw``."""
+    if "rescaled_from" in kw:
+        return {"reference": attempts[kw["rescaled_from"]][1].x}
+    return kw
 
 
 def _gap(entry: dict) -> float:

@@ -133,12 +133,13 @@ SMALL_PROGRAM_WEIGHTS = 2000
 
 
 #: The other ways :func:`solve_rows` tries when CLARABEL stops short of "solved" on the reduced
-#: program (each changes only the solver's path, see :func:`solve_reduced`).  The best checked
-#: lower bound (a Γ) and the best checked upper bound (a set of dual matrices) may come from
-#: different attempts: each is valid on its own.  Where CLARABEL ends on these programs depends on
-#: the variable order, the threads and the clique merging; on OR of 7 position-search rows at
-#: T = 12 (at most one row of value 1) the default and the first retry ended with "NumericalError"
-#: and the parent-child merge gave checked bounds [4.56878, 4.64099] (docs/symmetry.md).
+#: program and no rescaled re-solve (:data:`RESCALES`) is due (each changes only the solver's path,
+#: see :func:`solve_reduced`).  The best checked lower bound (a Γ) and the best checked upper bound
+#: (a set of dual matrices) may come from different attempts: each is valid on its own.  Where
+#: CLARABEL ends on these programs depends on the variable order, the threads and the clique
+#: merging; on OR of 7 position-search rows at T = 12 (at most one row of value 1) the default and
+#: the first retry ended with "NumericalError", the parent-child merge "almost solved" at checked
+#: bounds [4.51196, 4.67740], and a re-solve rescaled to that point "solved" (docs/symmetry.md).
 RETRIES = ({"orbit_totals": True, "threads": 1}, {"merge": "parent_child"},
            {"orbit_totals": True, "merge": "parent_child"})
 

@@ -351,8 +351,9 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     true, the program is solved again rescaled to its best point so far (:func:`rescaling`, at most
     :data:`RESCALES` times) and then with the settings of :data:`RETRIES`, until the best pieces are
     within :data:`RETRY_GAP`; the certificate takes the Γ with the best checked lower bound and the
-    dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).  If the gap between those still exceeds
-    :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
+    dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).
+    If the gap between those still exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound
+    only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).
     """

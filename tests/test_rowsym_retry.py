@@ -12,10 +12,11 @@ import pytest
 
 import advbound.programs.rowsym as rowsym
 from advbound.evidence.orbitcert import load_orbit_certificate, save_orbit_certificate
-from advbound.errors import SolverError
+from advbound.errors import InvalidFunctionError, SolverError
 from advbound.evidence.orbitcheck import orbit_upper_bound, verify_orbit_certificate
 from advbound.functions.builders import position_search_composition
 from advbound.functions.rowfamily import position_search_family
+from advbound.programs.minimax import solve_minimax_rows
 from advbound.programs.solve import solve
 
 OR3_T7 = 2.858167
@@ -53,6 +54,23 @@ def test_a_poor_first_point_is_rescaled_and_nothing_more_is_tried(monkeypatch):
     assert attempts[0]["lower"] < OR3_T7 - 1e-3
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
     assert r.verification.passed
+
+
+def test_without_any_point_the_positive_bound_gives_the_densities(monkeypatch):
+    calls = _scripted(monkeypatch, [_failed, lambda pt: pt])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
+    assert len(calls) == 2 and "reference" in calls[1]
+    assert [a["settings"] for a in r.certificate.metadata["attempts"]] == ["default", "rescaled_from=positive bound"]
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+
+
+def test_the_guessed_densities_are_the_positive_certificates_test_vector():
+    fam = position_search_family("or", 4, 8, 1)
+    prog = rowsym.formulate_rows(fam)
+    guess = rowsym.positive_densities(prog)
+    positive = solve_minimax_rows(fam)
+    assert np.all(guess[:prog.n_weights] == 0)
+    assert np.allclose(guess[prog.n_weights:], positive.certificate.rho, rtol=1e-9, atol=0)
 
 
 def test_rescaling_needs_a_point_with_densities():
@@ -94,8 +112,10 @@ def _failed(pt):
 
 def test_a_failed_first_solve_is_retried(monkeypatch, tmp_path):
     calls = _scripted(monkeypatch, [_failed, lambda pt: pt])
+    monkeypatch.setattr(rowsym, "positive_densities", lambda prog: None)
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
-    # no point to rescale to, so the first setting of RETRIES; its point is tight, so nothing more
+    # no point to rescale to and no densities to guess from, so the first setting of RETRIES; its
+    # point is tight, so nothing more
     assert len(calls) == 2 and "reference" not in calls[1]
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
     attempts = r.certificate.metadata["attempts"]
@@ -142,3 +162,13 @@ def test_no_retry_when_the_first_point_is_already_tight(monkeypatch):
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
     assert len(calls) == 1 and "attempts" not in r.certificate.metadata
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+
+
+def test_the_first_solve_may_be_rescaled_to_the_positive_densities(monkeypatch):
+    calls = _scripted(monkeypatch, [lambda pt: pt])
+    r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7), first=rowsym.GUESS)
+    assert len(calls) == 1 and "reference" in calls[0]
+    assert r.certificate.metadata["first"] == "rescaled_from=positive bound"
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
+    with pytest.raises(InvalidFunctionError, match="first 'guess' is unknown"):
+        rowsym.solve_rows(position_search_composition("or", 3, 5, 7), first="guess")

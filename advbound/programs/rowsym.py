@@ -71,7 +71,7 @@ from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
 __all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "lmi_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
-           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "rescaling",
+           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "GUESS", "rescaling", "positive_densities",
            "DENSE_CHECK_LIMIT"]
 
 log = logging.getLogger("advbound")
@@ -337,7 +337,7 @@ def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.nda
 
 def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | None = None,
                verbose: bool = False, dense_check_limit: int = DENSE_CHECK_LIMIT, solver: str | None = None,
-               retry: bool = True, refine: bool = True, **options):
+               retry: bool = True, refine: bool = True, first: str = "default", **options):
     """Solve ADV± (or ADV) of ``f`` on the row-symmetric program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows (see :func:`family_of`) or a
@@ -352,7 +352,8 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     :data:`RESCALES` times) and then with the settings of :data:`RETRIES`, until the best pieces are
     within :data:`RETRY_GAP`; the certificate takes the Γ with the best checked lower bound and the
     dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).
-    If the gap between those still exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound
+    ``first = "positive bound"`` (:data:`GUESS`) rescales the first solve as well, to the densities of
+    :func:`positive_densities` (when that program gives a point).  If the gap between those still exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound
     only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).
@@ -364,15 +365,23 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
-    attempts = [({}, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose))]
+    if first not in ("default", GUESS):
+        raise InvalidFunctionError(f"first {first!r} is unknown; use 'default' or {GUESS!r}")
+    guess = positive_densities(solved) if first == GUESS else None
+    kw0 = {"rescaled_from": GUESS} if guess is not None else {}
+    attempts = [(kw0, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
+                                    **({"reference": guess} if guess is not None else {})))]
     pt, duals, refined, record = attempts[0][1], attempts[0][1].duals, None, []
     gamma, rho = gamma_on_orbits(prog, pt.x) if pt.x.size and np.all(np.isfinite(pt.x)) else (None, None)
     if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor
         screened = [_screen(prog, solved, *attempts[0])]
         if retry and _gap(screened[0][0]) > RETRY_GAP:
-            for kw in _retries(screened):
+            for kw in _retries(screened, guessed=bool(kw0)):
+                settings = _solver_settings(kw, attempts, solved)
+                if settings is None:
+                    continue
                 attempts.append((kw, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
-                                                   **_solver_settings(kw, attempts))))
+                                                   **settings)))
                 screened.append(_screen(prog, solved, *attempts[-1]))
         pt, gamma, rho, duals = _best_pieces(screened, attempts[0][1])
         record = [entry for entry, *_ in screened]
@@ -399,6 +408,8 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
             "solver": {"name": "CLARABEL", "version": pt.version, "tol": float(tol), "status": pt.raw_status,
                        "iterations": pt.iterations, "time": float(pt.seconds)},
             "reduced": dict(solved.sizes(), build_time=prog.build_time), "basis": BASIS_VERSION}
+    if kw0:
+        meta["first"] = _describe(kw0)
     if len(attempts) > 1:
         meta["attempts"] = record
     if refined is not None:
@@ -421,12 +432,14 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
                        certificate=cert, verification=rep, **base)
 
 
-def _retries(screened: list):
+def _retries(screened: list, guessed: bool = False):
     """The settings of the retries, one at a time, for as long as the best pieces exceed :data:`RETRY_GAP`.
 
     ``screened`` grows as the caller goes.  Whenever the attempt with the best checked lower bound has
     not been a reference yet, the next retry is a re-solve rescaled to it (setting ``rescaled_from``,
-    its index; at most :data:`RESCALES` in all); otherwise the next setting of :data:`RETRIES`.
+    its index; at most :data:`RESCALES` in all); while no attempt has a point, once, a re-solve
+    rescaled to the positive bound's densities (``rescaled_from`` :data:`GUESS`); otherwise the next
+    setting of :data:`RETRIES` (``guessed``: the first solve was that re-solve already).
     """
     used, queue = set(), list(RETRIES)
     while _pieces_gap([entry for entry, *_ in screened]) > RETRY_GAP:
@@ -435,14 +448,51 @@ def _retries(screened: list):
         if best is not None and best not in used and len(used) < RESCALES:
             used.add(best)
             yield {"rescaled_from": best}
+        elif best is None and not guessed:
+            guessed = True
+            yield {"rescaled_from": GUESS}
         elif queue:
             yield queue.pop(0)
         else:
             return
 
 
-def _solver_settings(kw: dict, attempts: list) -> dict:
-    """The keyword arguments of :func:`solve_reduced` for the retry ``kw``."""
+#: The ``rescaled_from`` setting of a re-solve rescaled to the densities of the positive bound's minimax
+#: solution (:func:`positive_densities`): the retry when no attempt has given a point yet.
+GUESS = "positive bound"
+
+
+def positive_densities(prog: RowProgram) -> np.ndarray | None:
+    """A reference point ``(0, ρ)`` for :func:`rescaling`: ``ρ`` from the minimax program of the positive
+    bound of the same family (:mod:`advbound.programs.minimax_transport`, usually far cheaper than the
+    reduced program), or ``None`` when that program gives no point.
+
+    Only the densities matter to the rescaling.  At 8 rows, T = 14 (at most one row of value 1), where
+    four settings of the reduced program ended without a point, a solve rescaled to these densities
+    ended "solved"; at 6 rows, T = 12 it did in one solve of 232 s (docs/symmetry.md).
+    """
+    from advbound.errors import AdvboundError
+    from advbound.programs.minimax import gamma_from_multipliers
+    from advbound.programs.minimax_transport import solve_transport
+
+    try:
+        pt = solve_transport(prog.family)
+    except AdvboundError as err:
+        log.info("no densities from the positive bound: %s", err)
+        return None
+    if pt.status == "failed" or pt.keys.shape[0] == 0 or not np.any(pt.multipliers > 0):
+        return None
+    _gamma, rho = gamma_from_multipliers(prog.family, pt.keys, pt.multipliers)
+    if not np.all(np.isfinite(rho)) or rho.max() <= 0:
+        return None
+    return np.concatenate([np.zeros(prog.n_weights), rho])
+
+
+def _solver_settings(kw: dict, attempts: list, prog: RowProgram) -> dict | None:
+    """The keyword arguments of :func:`solve_reduced` for the retry ``kw`` (None: nothing to solve)."""
+    if kw.get("rescaled_from") == GUESS:
+        guess = positive_densities(prog)
+        return None if guess is None else {"reference": guess}
     if "rescaled_from" in kw:
         return {"reference": attempts[kw["rescaled_from"]][1].x}
     return kw

@@ -172,3 +172,10 @@ def test_the_first_solve_may_be_rescaled_to_the_positive_densities(monkeypatch):
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6) and r.upper == pytest.approx(OR3_T7, abs=2e-6)
     with pytest.raises(InvalidFunctionError, match="first 'guess' is unknown"):
         rowsym.solve_rows(position_search_composition("or", 3, 5, 7), first="guess")
+
+
+def test_the_first_solve_setting_passes_through_solve():
+    # a study's `options = { first = "positive bound" }` reaches solve_rows through solve(f, **options)
+    r = solve(position_search_composition("or", 3, 5, 7), first=rowsym.GUESS)
+    assert r.method == "rows" and r.certificate.metadata["first"] == "rescaled_from=positive bound"
+    assert r.lower == pytest.approx(OR3_T7, abs=2e-6)

@@ -353,20 +353,20 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     within :data:`RETRY_GAP`; the certificate takes the Γ with the best checked lower bound and the
     dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).
     ``first = "positive bound"`` (:data:`GUESS`) rescales the first solve as well, to the densities of
-    :func:`positive_densities` (when that program gives a point).  If the gap between those still exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound
-    only), the chosen point is moved by
+    :func:`positive_densities` (when that program gives a point).  If the gap between those still
+    exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).
     """
     from advbound import status as _status
     from advbound.result import SolveResult, SolverStats
 
+    if first not in ("default", GUESS):
+        raise InvalidFunctionError(f"first {first!r} is unknown; use 'default' or {GUESS!r}")
     fam = row_family_for(f, "rows", options, solver)
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
-    if first not in ("default", GUESS):
-        raise InvalidFunctionError(f"first {first!r} is unknown; use 'default' or {GUESS!r}")
     guess = positive_densities(solved) if first == GUESS else None
     kw0 = {"rescaled_from": GUESS} if guess is not None else {}
     attempts = [(kw0, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
@@ -376,7 +376,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor
         screened = [_screen(prog, solved, *attempts[0])]
         if retry and _gap(screened[0][0]) > RETRY_GAP:
-            for kw in _retries(screened, guessed=bool(kw0)):
+            for kw in _retries(screened, guessed=first == GUESS):
                 settings = _solver_settings(kw, attempts, solved)
                 if settings is None:
                     continue
@@ -439,7 +439,7 @@ def _retries(screened: list, guessed: bool = False):
     not been a reference yet, the next retry is a re-solve rescaled to it (setting ``rescaled_from``,
     its index; at most :data:`RESCALES` in all); while no attempt has a point, once, a re-solve
     rescaled to the positive bound's densities (``rescaled_from`` :data:`GUESS`); otherwise the next
-    setting of :data:`RETRIES` (``guessed``: the first solve was that re-solve already).
+    setting of :data:`RETRIES` (``guessed``: those densities were asked for already, for the first solve).
     """
     used, queue = set(), list(RETRIES)
     while _pieces_gap([entry for entry, *_ in screened]) > RETRY_GAP:

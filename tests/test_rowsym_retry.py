@@ -184,10 +184,10 @@ def test_the_first_solve_setting_passes_through_solve():
 def test_large_programs_start_from_the_positive_densities(monkeypatch):
     # the size rule, seen on a small program by lowering the threshold
     calls = _scripted(monkeypatch, [lambda pt: pt])
-    monkeypatch.setattr(rowsym, "SMALL_PROGRAM_WEIGHTS", 0)
+    monkeypatch.setattr(rowsym, "GUESS_WEIGHTS", 0)
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
     assert "reference" in calls[0] and r.certificate.metadata["first"] == "rescaled_from=positive bound"
     assert r.lower == pytest.approx(OR3_T7, abs=2e-6)
-    monkeypatch.setattr(rowsym, "SMALL_PROGRAM_WEIGHTS", 10 ** 9)
+    monkeypatch.setattr(rowsym, "GUESS_WEIGHTS", 10 ** 9)
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
     assert "reference" not in calls[1] and "first" not in r.certificate.metadata

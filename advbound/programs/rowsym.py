@@ -71,7 +71,7 @@ from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
 __all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "lmi_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
-           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "GUESS", "rescaling", "positive_densities",
+           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "GUESS", "GUESS_WEIGHTS", "rescaling", "positive_densities",
            "DENSE_CHECK_LIMIT"]
 
 log = logging.getLogger("advbound")
@@ -354,8 +354,8 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     dual matrices with the best checked upper bound (``metadata["attempts"]`` lists every attempt).
     ``first = "positive bound"`` (:data:`GUESS`) rescales the first solve as well, to the densities of
     :func:`positive_densities` (when that program gives a point), ``"default"`` does not, and ``None``
-    picks the first for ADV± programs of at least :data:`SMALL_PROGRAM_WEIGHTS` pair orbits and the
-    second otherwise (see :data:`GUESS` for the measurements).  If the gap between those still
+    picks the first for ADV± programs of at least :data:`GUESS_WEIGHTS` pair orbits and the second
+    otherwise (see :data:`GUESS` for the measurements).  If the gap between those still
     exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).
@@ -370,7 +370,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
     if first is None:
-        first = GUESS if bound == "general" and prog.n_weights >= SMALL_PROGRAM_WEIGHTS else "default"
+        first = GUESS if bound == "general" and prog.n_weights >= GUESS_WEIGHTS else "default"
     guess = positive_densities(solved) if first == GUESS else None
     kw0 = {"rescaled_from": GUESS} if guess is not None else {}
     attempts = [(kw0, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
@@ -470,6 +470,13 @@ def _retries(screened: list, guessed: bool = False):
 #: 1.6e-5); 6 rows: 232 s (417 s); 7 rows: 12 s (43 s); 8 rows, T = 14: 458 s, where four unrescaled
 #: settings all ended without a point.
 GUESS = "positive bound"
+
+#: ADV± programs with at least this many pair orbits start rescaled to :data:`GUESS` (``first=None``):
+#: every measured one gained.  Below it the measurements are mixed, and a rescaled start costs dual
+#: accuracy where the unrescaled solve ends "solved": 4 rows, T = 10 (1,307 pair orbits) took 52.8 s
+#: at relative gap 3.0e-6 against 43.7 s at 1.2e-7; 3 rows, T = 12 (1,525) 63.4 s at 3.9e-5 against
+#: 39.1 s at 6.3e-7; only 7 rows, T = 12 (1,398) gained (12 s against 43 s).
+GUESS_WEIGHTS = 2000
 
 
 def positive_densities(prog: RowProgram) -> np.ndarray | None:

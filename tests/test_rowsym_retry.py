@@ -191,3 +191,17 @@ def test_large_programs_start_from_the_positive_densities(monkeypatch):
     monkeypatch.setattr(rowsym, "GUESS_WEIGHTS", 10 ** 9)
     r = rowsym.solve_rows(position_search_composition("or", 3, 5, 7))
     assert "reference" not in calls[1] and "first" not in r.certificate.metadata
+
+
+def test_a_program_beyond_the_memory_available_is_refused_in_one_line(monkeypatch):
+    import advbound.functions.sizing as sizing
+    from advbound.functions.sizing import TooLargeError
+
+    f = position_search_composition("or", 3, 5, 7)
+    est = rowsym.rows_estimate(rowsym.formulate_rows(position_search_family("or", 3, 7, None)))
+    assert 0 < est["memory_bytes"] < 2 ** 30 and est["seconds"] > 0       # 10 cones of 66 and 54 rows
+    monkeypatch.setattr(sizing, "memory_budget", lambda: {"available": 2 ** 20, "total": 2 ** 30, "source": "test"})
+    with pytest.raises(TooLargeError, match="row-symmetric program .* needs about") as err:
+        solve(f)
+    assert "\n" not in str(err.value)
+    assert solve(f, allow_large=True).lower == pytest.approx(OR3_T7, abs=2e-6)       # only logged

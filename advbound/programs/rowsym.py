@@ -71,8 +71,8 @@ from advbound.functions.rowbasis import BASIS_VERSION, RowBasis, row_basis
 from advbound.functions.rowfamily import RowFamily, family_of
 
 __all__ = ["RowProgram", "ReducedPoint", "formulate_rows", "lmi_rows", "solve_reduced", "gamma_on_orbits", "solve_rows",
-           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "GUESS", "GUESS_WEIGHTS", "rescaling", "positive_densities",
-           "DENSE_CHECK_LIMIT"]
+           "RETRIES", "RETRY_GAP", "RESCALES", "RESCALE_FLOOR", "GUESS", "GUESS_WEIGHTS", "rescaling",
+           "positive_densities", "rows_estimate", "DENSE_CHECK_LIMIT"]
 
 log = logging.getLogger("advbound")
 
@@ -149,6 +149,25 @@ RETRY_GAP = 1e-4
 #: At most this many re-solves rescaled to the best point so far (:func:`rescaling`) come before
 #: :data:`RETRIES`; the retries stop once the best checked pieces are within :data:`RETRY_GAP`.
 RESCALES = 2
+
+
+#: CLARABEL's peak memory and time on the reduced program per unit of Σ s³ over its cones (s a cone's
+#: size), the largest ratios measured on OR of position-search rows, at most one row of value 1, one
+#: core: 4 rows, T = 12 (Σ s³ = 2.4e8) about 7 GB and 669 s, 5 rows (3.6e8) about 7 GB and 1,231 s,
+#: 8 rows, T = 14 (2.6e8) 3.6 GB and 458 s, 9 rows (3.6e7) 0.4 GB and 24 s; 7 rows, T = 14 (1.3e9)
+#: passed 20.8 GB within a minute and was killed for lack of memory.
+_BYTES_PER_CUBE, _BASE_BYTES, _SECONDS_PER_CUBE = 29.0, 150 * 2**20, 3.4e-6
+
+
+def rows_estimate(prog: RowProgram) -> dict:
+    """Rough memory and time of :func:`solve_reduced` on ``prog`` (for ``check_memory``)."""
+    sizes = [len(prog.blocks[bi].rows) for _p, _s, bi in prog.cone_keys()]
+    cube = float(sum(s ** 3 for s in sizes))
+    return {"what": f"the row-symmetric program ({prog.n_weights} pair orbits, {len(sizes)} cones, largest "
+                    f"{max(sizes)})", "solver": "CLARABEL",
+            "memory_bytes": int(_BASE_BYTES + _BYTES_PER_CUBE * cube), "seconds": _SECONDS_PER_CUBE * cube,
+            "memory_formula": f"{_BYTES_PER_CUBE:g} bytes per unit of the sum of cubed cone sizes",
+            "time_formula": f"{_SECONDS_PER_CUBE:g} s per unit of the sum of cubed cone sizes"}
 
 
 def formulate_rows(fam: RowFamily, bound: str = "general") -> RowProgram:
@@ -337,7 +356,8 @@ def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.nda
 
 def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | None = None,
                verbose: bool = False, dense_check_limit: int = DENSE_CHECK_LIMIT, solver: str | None = None,
-               retry: bool = True, refine: bool = True, first: str | None = None, **options):
+               retry: bool = True, refine: bool = True, first: str | None = None, allow_large: bool = False,
+               **options):
     """Solve ADV± (or ADV) of ``f`` on the row-symmetric program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows (see :func:`family_of`) or a
@@ -358,9 +378,11 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     otherwise (see :data:`GUESS` for the measurements).  If the gap between those still
     exceeds :data:`RETRY_GAP` and ``refine`` is true (general bound only), the chosen point is moved by
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
-    is better (``metadata["refined"]``).
+    is better (``metadata["refined"]``).  Before any solve, :func:`rows_estimate` is checked against the
+    memory available (:func:`advbound.functions.sizing.check_memory`; ``allow_large`` only logs it).
     """
     from advbound import status as _status
+    from advbound.functions.sizing import check_memory
     from advbound.result import SolveResult, SolverStats
 
     if first not in (None, "default", GUESS):
@@ -369,6 +391,8 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
+    check_memory(rows_estimate(solved), allow_large=allow_large,
+                 hint="its memory grows like the cube of the block sizes (docs/symmetry.md)")
     if first is None:
         first = GUESS if bound == "general" and prog.n_weights >= GUESS_WEIGHTS else "default"
     guess = positive_densities(solved) if first == GUESS else None

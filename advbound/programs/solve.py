@@ -97,8 +97,9 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
         With ``method="dense"``, the memory of the whole solve is estimated first
         (:func:`advbound.functions.sizing.solve_estimate`) and a program that needs more than this
         machine has available (:func:`advbound.functions.sizing.memory_budget`) is refused before
-        anything is built; ``True`` only logs the estimate.  The other methods size
-        themselves.
+        anything is built; ``True`` only logs the estimate.  ``method="rows"`` checks its own
+        estimate the same way (:func:`advbound.programs.rowsym.rows_estimate`); the other methods
+        size themselves.
     **options
         Passed to the solver; unknown ones emit :class:`~advbound.errors.AdvboundWarning`.
 
@@ -137,8 +138,8 @@ def solve(f: PartialFunction, bound: str = "general", solver: str | None = None,
         # pass the common settings the other method declares; everything else goes through **options
         params = inspect.signature(func).parameters
         chosen = solver if method in ("rows", "minimax") else (solver or "SCS")
-        extra = {k: v for k, v in dict(solver=chosen, max_iters=max_iters, with_dual=with_dual).items()
-                 if k in params}
+        extra = {k: v for k, v in dict(solver=chosen, max_iters=max_iters, with_dual=with_dual,
+                                       allow_large=allow_large).items() if k in params}
         res = func(target, bound=bound, tol=tol, verbose=verbose, **extra, **options)
     else:
         res = _solve_dense(f, bound, solver or "SCS", tol, max_iters, verbose, with_dual, dual_source, repair_tol,

@@ -395,10 +395,11 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
                  hint="its memory grows like the cube of the block sizes (docs/symmetry.md)")
     if first is None:
         first = GUESS if bound == "general" and prog.n_weights >= GUESS_WEIGHTS else "default"
-    guess = positive_densities(solved) if first == GUESS else None
-    kw0 = {"rescaled_from": GUESS} if guess is not None else {}
-    attempts = [(kw0, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose,
-                                    **({"reference": guess} if guess is not None else {})))]
+    kw0 = {"rescaled_from": GUESS} if first == GUESS else {}
+    settings = _solver_settings(kw0, [], solved)
+    if settings is None:                           # the positive bound gave no densities: start unrescaled
+        kw0, settings = {}, {}
+    attempts = [(kw0, solve_reduced(solved, tol=tol, max_iters=max_iters, verbose=verbose, **settings))]
     pt, duals, refined, record = attempts[0][1], attempts[0][1].duals, None, []
     gamma, rho = gamma_on_orbits(prog, pt.x) if pt.x.size and np.all(np.isfinite(pt.x)) else (None, None)
     if pt.status != "optimal" and (retry or refine):       # screen the bounds only where they may be poor

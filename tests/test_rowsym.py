@@ -93,7 +93,7 @@ def test_reduced_equals_dense(n, T, max_ones, outer):
     fam = position_search_family(outer, n, T, max_ones)
     low, prog, g = _reduced_value(fam)
     f, G = expand_gamma(prog, g)
-    dense = solve(f, solver="CLARABEL")
+    dense = solve(f, method="dense", solver="CLARABEL")
     assert dense.lower is not None and dense.upper is not None
     assert dense.lower * (1 - 5e-6) <= low <= dense.upper * (1 + 1e-9)
     assert low == pytest.approx(dense.upper, rel=1e-5)
@@ -104,7 +104,7 @@ def test_positive_bound_equals_dense():
     fam = position_search_family("or", 3, 5)
     low, prog, g = _reduced_value(fam, "positive")
     f, _ = expand_gamma(prog, g)
-    dense = solve(f, "positive", solver="CLARABEL")
+    dense = solve(f, "positive", method="dense", solver="CLARABEL")
     assert low == pytest.approx(dense.upper, rel=1e-5)
 
 
@@ -116,7 +116,7 @@ def test_three_outputs_need_both_sides():
     low, prog, g = _reduced_value(fam)
     assert prog.sides == (1, -1)
     f, _ = expand_gamma(prog, g)
-    dense = solve(f, solver="CLARABEL")
+    dense = solve(f, method="dense", solver="CLARABEL")
     assert low == pytest.approx(dense.upper, rel=1e-5)
 
 
@@ -157,7 +157,7 @@ def test_reduced_dual_bound_matches_dense(n, T, max_ones, outer, bound):
     pt = solve_reduced(prog)
     up = orbit_upper_bound(prog.basis, prog.bound, pt.duals)
     f, _ = expand_gamma(prog, gamma_on_orbits(prog, pt.x)[0])
-    dense = solve(f, bound, solver="CLARABEL")
+    dense = solve(f, bound, method="dense", solver="CLARABEL")
     assert dense.upper is not None
     assert up["upper"] == pytest.approx(dense.upper, rel=1e-5)
     assert up["upper"] >= dense.lower - 1e-7

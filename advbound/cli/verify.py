@@ -67,7 +67,10 @@ def run(args) -> int:
     if args.against:
         from advbound.evidence.export import match_instance
         from advbound.functions.instance import parse_params
-        match = match_instance(cert.function_view() if orbit else cert, args.against, parse_params(args.params))
+        # A certificate that declares a sub-domain is matched as a restriction (checked, not trusted).
+        sub = orbit and isinstance(cert.metadata.get("subdomain"), dict)
+        match = match_instance(cert.function_view() if orbit else cert, args.against, parse_params(args.params),
+                               restriction=sub)
         if not match.matched:
             return _mismatch(args, match)
     if orbit:
@@ -175,7 +178,11 @@ def _print_rigorous(title: str, rig) -> None:
 def _print_match(match) -> None:
     if match is not None:
         spec = f"spec hash {match.spec_key}" if match.spec_key else f"table sha256 {match.table_sha256}"
-        print(f"against {match.label()}: same function ({spec})")
+        if match.restriction:
+            print(f"against {match.label()}: {match.message} ({spec}): the lower bound holds for this "
+                  "instance, the upper bound only for the restriction")
+        else:
+            print(f"against {match.label()}: same function ({spec})")
 
 
 def _print_checks(title: str, checks) -> None:

@@ -91,9 +91,14 @@ class InstanceMatch:
     table_sha256 : str or None
         SHA-256 of a table file's bytes (``None`` for an instance file).
     matched : bool
-        True when the certificate's function is exactly the instance's.
+        True when the certificate's function is exactly the instance's (or, when ``restriction``,
+        the instance's function restricted to part of its domain).
     message : str
-        ``"same function"``, or the first difference (one line).
+        ``"same function"``, ``"a restriction of the function (k of N inputs)"``, or the first
+        difference (one line).
+    restriction : bool
+        True when the match is a restriction only: the certificate's lower bound holds for the
+        instance, its upper bound only for the restriction.
     """
 
     instance: str
@@ -102,6 +107,7 @@ class InstanceMatch:
     table_sha256: str | None
     matched: bool
     message: str
+    restriction: bool = False
 
     def to_dict(self) -> dict:
         """JSON-ready copy."""
@@ -139,8 +145,12 @@ def _candidates(spec, params: dict, limit: int) -> list[dict]:
     return out
 
 
-def match_instance(cert, path, params: dict | None = None, *, limit: int = MAX_MATCH_POINTS) -> InstanceMatch:
+def match_instance(cert, path, params: dict | None = None, *, limit: int = MAX_MATCH_POINTS,
+                   restriction: bool = False) -> InstanceMatch:
     """Check that ``cert`` is a certificate for the function ``path`` defines.
+
+    With ``restriction`` a certificate whose function is the instance's restricted to part of its
+    domain matches too (``InstanceMatch.restriction``), when it is not the same function.
 
     Parameters
     ----------
@@ -177,15 +187,24 @@ def match_instance(cert, path, params: dict | None = None, *, limit: int = MAX_M
     spec = load_instance(path)
     points = _candidates(spec, params, limit)
     if len(points) == 1:
-        diff = function_difference(cert, build_instance(spec, points[0]))
+        f = build_instance(spec, points[0])
+        diff = function_difference(cert, f)
+        if diff is not None and restriction and function_difference(cert, f, restriction=True) is None:
+            return InstanceMatch(path, points[0], spec_key(spec, points[0]), None, True,
+                                 f"a restriction of the function ({len(cert.inputs)} of {len(f.inputs)} inputs)",
+                                 restriction=True)
         return InstanceMatch(path, points[0], spec_key(spec, points[0]), None, diff is None, diff or "same function")
     for p in points:
         try:  # a grid point with more inputs than the certificate cannot match: refused before building
-            f = build_instance(spec, p, max_inputs=len(cert.inputs))
+            f = build_instance(spec, p, max_inputs=None if restriction else len(cert.inputs))
         except InvalidInstanceError:
             continue
         if function_difference(cert, f) is None:
             return InstanceMatch(path, p, spec_key(spec, p), None, True, "same function")
+        if restriction and function_difference(cert, f, restriction=True) is None:
+            return InstanceMatch(path, p, spec_key(spec, p), None, True,
+                                 f"a restriction of the function ({len(cert.inputs)} of {len(f.inputs)} inputs)",
+                                 restriction=True)
     return InstanceMatch(path, None, None, None, False,
                          f"the certificate's function is none of the {len(points)} grid points of {path} "
                          "(name one with --set to see the first difference)")

@@ -357,7 +357,7 @@ def gamma_on_orbits(prog: RowProgram, x: np.ndarray) -> tuple[np.ndarray, np.nda
 def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | None = None,
                verbose: bool = False, dense_check_limit: int = DENSE_CHECK_LIMIT, solver: str | None = None,
                retry: bool = True, refine: bool = True, first: str | None = None, allow_large: bool = False,
-               **options):
+               subdomain: int | None = None, **options):
     """Solve ADV± (or ADV) of ``f`` on the row-symmetric program; return a :class:`~advbound.result.SolveResult`.
 
     ``f`` is a :class:`PartialFunction` with interchangeable rows (see :func:`family_of`) or a
@@ -380,6 +380,12 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     :func:`advbound.programs.rowsym_refine.refine_lower` and its Γ is kept when its checked lower bound
     is better (``metadata["refined"]``).  Before any solve, :func:`rows_estimate` is checked against the
     memory available (:func:`advbound.functions.sizing.check_memory`; ``allow_large`` only logs it).
+
+    ``subdomain = K`` solves on the contents of :func:`advbound.programs.rowsub.densest_subfamily` with
+    at most ``K`` pair orbits instead: ``lower`` is then a verified lower bound on ADV± of the whole
+    family, ``upper`` is None (the dual bounds only the restriction), the status is at best
+    "inaccurate", the certificate is that of the restriction and ``metadata["subdomain"]`` says what
+    was kept.
     """
     from advbound import status as _status
     from advbound.functions.sizing import check_memory
@@ -388,6 +394,13 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     if first not in (None, "default", GUESS):
         raise InvalidFunctionError(f"first {first!r} is unknown; use 'default' or {GUESS!r}")
     fam = row_family_for(f, "rows", options, solver)
+    whole, kept = fam, None
+    if subdomain is not None:
+        from advbound.programs.rowsub import densest_subfamily
+
+        fam, kept = densest_subfamily(whole, subdomain)
+        if kept["contents"] == kept["of_contents"]:       # the budget holds the whole family: no restriction
+            fam, kept = whole, None
     prog = formulate_rows(fam, bound)
     # The positive bound needs only the trivial block (orbitcheck.trivial_basis); verification uses them all.
     solved = RowProgram(trivial_basis(prog.basis), bound) if bound == "positive" else prog
@@ -427,7 +440,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     K = prog.n_weights
     finite = gamma is not None
     objective = float(2.0 * prog.pair_counts @ pt.x[:K]) if finite else None
-    base = dict(bound=bound, domain_size=fam.size, solver_stats=stats, objective=objective)
+    base = dict(bound=bound, domain_size=whole.size, solver_stats=stats, objective=objective)
     if st not in _status.SUCCESS or not finite:
         st = st if st not in _status.SUCCESS else _status.FAILED
         tried = "; ".join(f"{_describe(kw)}: {a.raw_status!r}" for kw, a in attempts)
@@ -446,6 +459,8 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
                            "cuts": refined.cuts, "time": refined.seconds}
     if solved is not prog:
         meta["cones"] = "trivial"
+    if kept is not None:
+        meta["subdomain"] = dict(kept, of=whole.description)
     cert = orbit_certificate(prog, gamma, rho, duals, meta)
     rep = verify_orbit_certificate(cert, dense_limit=dense_check_limit, basis=prog.basis)
     cert = dataclasses.replace(cert, metadata=dict(meta, claimed_lower=rep.lower, claimed_upper=rep.upper))
@@ -457,6 +472,11 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
     dual = {"upper": rep.upper, "message": "weak duality, PSD-projected dual matrices, float64"
             if rep.upper is not None else "no dual matrices"}
     st, msg, upper = _rows_verdict(st, rep.lower, dual, tol)
+    if kept is not None:
+        st, upper = _status.INACCURATE, None
+        msg = (f"a lower bound on the whole family from a sub-domain of {kept['contents']} of "
+               f"{kept['of_contents']} input orbits ({kept['inputs']} of {kept['of_inputs']} inputs); the dual "
+               f"bounds only the restriction ({msg})")
     return SolveResult(message=f"lower bound {where}; {msg}", status=st, lower=rep.lower, upper=upper,
                        certificate=cert, verification=rep, **base)
 

@@ -116,3 +116,27 @@ def test_subdomain_passes_through_solve():
 
     r = solve(position_search_composition("or", 4, 5, 8, max_ones=1), subdomain=150)
     assert r.status == "inaccurate" and r.upper is None and r.certificate.metadata["subdomain"]["weights"] <= 150
+
+
+def test_a_study_with_a_sub_domain_stores_a_lower_bound_only(tmp_path, monkeypatch, capsys):
+    """``options = { subdomain = K }`` end to end: the stored row has the lower bound, no upper bound, the
+    whole function's |D|, and a certificate that ``verify --against`` the study accepts as a restriction."""
+    from advbound.studies.store import Store
+
+    text = open(ENVELOPE).read()
+    head = text[:text.index("[grid]")]
+    study = tmp_path / "sub.toml"
+    study.write_text(head + '[grid]\nT = [8]\nrows = [4]\n\n[study]\nname = "sub"\nbounds = ["general"]\n'
+                     'options = { subdomain = 150 }\n')
+    monkeypatch.chdir(tmp_path)
+    store = tmp_path / "sub.sqlite"
+    assert main(["study", str(study), "--store", str(store), "--certificates", str(tmp_path / "certs"),
+                 "--quiet", "--no-report"]) == 0
+    with Store(str(store), readonly=True) as st:
+        (row,) = st.rows()
+        cert = st.certificate_path(row)
+    assert row.status == "inaccurate" and row.upper is None and row.domain_size == 175
+    assert 0.9 * 3.31089 < row.lower <= 3.31089 + 1e-5
+    capsys.readouterr()
+    assert main(["verify", cert, "--against", str(study), "--set", "T=8", "--set", "rows=4"]) == 0
+    assert "a restriction of the function" in capsys.readouterr().out

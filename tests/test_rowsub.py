@@ -140,3 +140,16 @@ def test_a_study_with_a_sub_domain_stores_a_lower_bound_only(tmp_path, monkeypat
     capsys.readouterr()
     assert main(["verify", cert, "--against", str(study), "--set", "T=8", "--set", "rows=4"]) == 0
     assert "a restriction of the function" in capsys.readouterr().out
+
+
+def test_cli_solve_subdomain(capsys):
+    args = ["solve", ENVELOPE, "--set", "T=8", "--set", "rows=4"]
+    assert main(args + ["--subdomain", "150", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["status"] == "inaccurate" and d["upper"] is None and d["method"] == "rows"
+    assert 0.9 * 3.31089 < d["lower"] <= 3.31089 + 1e-5 and "sub-domain of" in d["message"]
+    for extra, match in ((["--subdomain", "0"], "positive number of pair orbits"),
+                         (["--subdomain", "150", "--method", "dense"], "row-symmetric program")):
+        assert main(args + extra) == 2
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and match in err[0]

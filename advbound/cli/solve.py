@@ -47,6 +47,9 @@ def register(subparsers) -> None:
     p.add_argument("--force", action="store_true", help="overwrite an existing --save-certificate file")
     p.add_argument("--allow-large", action="store_true",
                    help="solve even when the memory estimate exceeds what this machine has available")
+    p.add_argument("--subdomain", type=int, default=None, metavar="K",
+                   help="row-symmetric program only: solve on the input orbits of most positive-bound weight "
+                        "within K pair orbits, for a verified lower bound on the whole function (no upper bound)")
     p.set_defaults(run=run)
 
 
@@ -70,9 +73,16 @@ def run(args) -> int:
         raise InvalidFunctionError(f"--max-iters must be positive, got {args.max_iters}")
     if args.save_certificate:
         check_output_path(args.save_certificate, force=args.force)
+    extra = {}
+    if args.subdomain is not None:
+        if args.subdomain < 1:
+            raise InvalidFunctionError(f"--subdomain must be a positive number of pair orbits, got {args.subdomain}")
+        if args.method not in ("auto", "rows"):
+            raise InvalidFunctionError(f"--subdomain works with the row-symmetric program, not --method {args.method}")
+        extra["subdomain"] = args.subdomain
     f, params = _load(args)
     res = solve(f, bound=args.bound, solver=args.solver, tol=args.tol, max_iters=args.max_iters,
-                method=args.method, allow_large=args.allow_large)
+                method=args.method, allow_large=args.allow_large, **extra)
     saved = None
     if args.save_certificate and res.certificate is not None:
         save_any_certificate(res.certificate, args.save_certificate)

@@ -473,6 +473,7 @@ def solve_rows(f, bound: str = "general", tol: float = 1e-8, max_iters: int | No
             if rep.upper is not None else "no dual matrices"}
     st, msg, upper = _rows_verdict(st, rep.lower, dual, tol)
     if kept is not None:
+        where = where.replace("(full domain)", "(every input of the sub-domain)")
         st, upper = _status.INACCURATE, None
         msg = (f"a lower bound on the whole family from a sub-domain of {kept['contents']} of "
                f"{kept['of_contents']} input orbits ({kept['inputs']} of {kept['of_inputs']} inputs); the dual "
